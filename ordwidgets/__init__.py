@@ -1,0 +1,10 @@
+"""ordwidgets: linked Jupyter widgets for building, checking and explaining cumulative link models.
+
+The model: ``P(Y <= j | x) = F(theta_j - x'beta)`` with increasing thresholds ``theta``;
+a positive effect ``beta`` moves probability towards higher categories.
+"""
+from .core import *  # noqa: F401,F403
+from .core import __all__ as _core_all
+
+__version__ = "0.1.0"
+__all__ = list(_core_all)

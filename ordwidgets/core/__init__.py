@@ -1,0 +1,16 @@
+"""Fitting core: pure numpy/scipy, no widget imports."""
+from .design import encode_response, prepare, threshold_labels
+from .exceptions import (CollinearityError, ConvergenceWarning, DataWarning, OrdinalDataError,
+                         SeparationWarning, UnknownLinkError)
+from .fitting import closed_form_thresholds, fit
+from .links import LINKS, Link, get_link, link_names
+from .probabilities import category_probabilities, interval_logprob, interval_probability
+from .results import SIGN_CONVENTION, FitResult
+
+__all__ = [
+    "fit", "FitResult", "Link", "LINKS", "get_link", "link_names", "closed_form_thresholds",
+    "category_probabilities", "interval_probability", "interval_logprob", "prepare",
+    "encode_response", "threshold_labels", "SIGN_CONVENTION", "OrdinalDataError",
+    "UnknownLinkError", "CollinearityError", "DataWarning", "ConvergenceWarning",
+    "SeparationWarning",
+]

@@ -1,0 +1,260 @@
+"""From a formula and a data frame to the arrays the fitter needs.
+
+Every refusal raises an :class:`~ordwidgets.core.exceptions.OrdinalDataError` naming the
+column or level; every repair (rows dropped for missing or infinite values, declared levels
+without observations) is reported with a
+:class:`~ordwidgets.core.exceptions.DataWarning`.  Nothing is changed silently.
+"""
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from .exceptions import CollinearityError, DataWarning, OrdinalDataError
+
+__all__ = ["PreparedData", "prepare", "split_formula", "encode_response", "threshold_labels"]
+
+
+@dataclass(eq=False)
+class PreparedData:
+    """Arrays for one fit, in the rows kept after cleaning (original row order)."""
+
+    X: np.ndarray
+    y: np.ndarray
+    weights: np.ndarray | None
+    levels: tuple
+    columns: tuple[str, ...]
+    response: str
+    rhs: str
+    model_spec: object | None
+    index: pd.Index
+    notes: list[str] = field(default_factory=list)
+
+
+def split_formula(formula):
+    """Split ``"response ~ terms"`` into its two sides.
+
+    Raises
+    ------
+    OrdinalDataError
+        If the formula has no single ``~`` or no response.
+    """
+    if not isinstance(formula, str) or formula.count("~") != 1:
+        raise OrdinalDataError(
+            f"formula must look like 'response ~ predictors', got {formula!r}"
+        )
+    lhs, rhs = (part.strip() for part in formula.split("~"))
+    if not lhs:
+        raise OrdinalDataError(f"formula {formula!r} names no response")
+    return lhs.strip("`"), rhs or "1"
+
+
+def threshold_labels(levels):
+    """Our labels for thresholds: ``"poor->fair"`` is the cut between two adjacent levels."""
+    labels = [str(v) for v in levels]
+    return [f"{a}->{b}" for a, b in zip(labels[:-1], labels[1:])]
+
+
+def encode_response(values, levels=None, *, name="response"):
+    """Turn a response column into integer codes ``0..J-1`` and the ordered levels.
+
+    Accepted: an ordered pandas Categorical (its order), integers (sorted), or any values
+    with an explicit ``levels=`` order.  Unordered strings without ``levels=`` are refused:
+    alphabetical order is almost never the order of a rating scale.
+    """
+    s = pd.Series(values)
+    if levels is not None:
+        levels = list(levels)
+        if len(set(levels)) != len(levels):
+            raise OrdinalDataError(f"levels= for {name!r} repeats a level: {levels!r}")
+        lookup = {lvl: i for i, lvl in enumerate(levels)}
+        raw = s.astype(object)
+        bad = sorted({repr(v) for v in raw if v not in lookup})
+        if bad:
+            raise OrdinalDataError(
+                f"response {name!r} has values not in levels=: {', '.join(bad[:8])}"
+            )
+        return np.array([lookup[v] for v in raw], dtype=np.intp), tuple(levels)
+    if isinstance(s.dtype, pd.CategoricalDtype):
+        if not s.dtype.ordered:
+            raise OrdinalDataError(
+                f"response {name!r} is an unordered categorical; make it ordered or pass levels="
+            )
+        return s.cat.codes.to_numpy(np.intp), tuple(s.cat.categories)
+    if pd.api.types.is_bool_dtype(s.dtype) or pd.api.types.is_integer_dtype(s.dtype):
+        uniq = np.sort(s.unique())
+        return np.searchsorted(uniq, s.to_numpy()).astype(np.intp), tuple(uniq.tolist())
+    if pd.api.types.is_float_dtype(s.dtype) and np.all(np.mod(s.to_numpy(), 1) == 0):
+        uniq = np.sort(s.unique())
+        return np.searchsorted(uniq, s.to_numpy()).astype(np.intp), tuple(uniq.tolist())
+    raise OrdinalDataError(
+        f"response {name!r} has unordered values ({s.dtype}); pass levels= in order, "
+        "or use an ordered pandas Categorical"
+    )
+
+
+def _required_columns(rhs, data):
+    from formulaic import Formula
+
+    try:
+        names = {str(v) for v in Formula(rhs).required_variables}
+    except Exception as exc:  # formulaic raises several parser error types
+        raise OrdinalDataError(f"cannot parse the predictors {rhs!r}: {exc}") from exc
+    names = sorted(n for n in names if n not in {"np", "numpy"})
+    missing = [n for n in names if n not in data.columns]
+    if missing:
+        raise OrdinalDataError(
+            f"columns not in the data: {', '.join(missing)}; available: "
+            f"{', '.join(map(str, data.columns[:20]))}"
+        )
+    return names
+
+
+def _check_mixed(data, columns):
+    for c in columns:
+        col = data[c]
+        if col.dtype != object:
+            continue
+        vals = col.dropna()
+        numeric = vals.map(lambda v: isinstance(v, (int, float, np.number)) and not isinstance(v, bool))
+        if numeric.any() and not numeric.all():
+            bad = sorted({repr(v) for v in vals[~numeric]})[:5]
+            raise OrdinalDataError(
+                f"column {c!r} mixes numbers with non-numeric values ({', '.join(bad)}); "
+                "clean it or convert it explicitly"
+            )
+
+
+def _weights_array(weights, data):
+    if weights is None:
+        return None
+    if isinstance(weights, str):
+        if weights not in data.columns:
+            raise OrdinalDataError(f"weights column {weights!r} is not in the data")
+        w = data[weights]
+    else:
+        w = pd.Series(np.asarray(weights), index=data.index)
+        if len(w) != len(data):
+            raise OrdinalDataError(f"weights has {len(w)} entries for {len(data)} rows")
+    if not pd.api.types.is_numeric_dtype(w.dtype) or pd.api.types.is_bool_dtype(w.dtype):
+        raise OrdinalDataError(f"weights must be numeric, got {w.dtype}")
+    w = w.astype(float)
+    if (~np.isfinite(w.dropna())).any():
+        raise OrdinalDataError("weights must be finite")
+    if (w.dropna() < 0).any():
+        raise OrdinalDataError("weights must be non-negative")
+    return w
+
+
+def _drop_unusable(data, response, columns, w):
+    """Drop rows with missing (or infinite) values; warn with counts per column."""
+    frame = data[[response] + columns]
+    missing = frame.isna()
+    if w is not None:
+        missing = missing.assign(**{"(weights)": w.isna()})
+    bad = missing.any(axis=1)
+    notes = []
+    if bad.any():
+        counts = missing.sum()
+        detail = ", ".join(f"{c}: {int(n)}" for c, n in counts.items() if n)
+        notes.append(f"dropped {int(bad.sum())} rows with missing values ({detail})")
+    num = [c for c in columns if pd.api.types.is_numeric_dtype(frame[c].dtype)]
+    if num:
+        inf = frame[num].apply(lambda s: np.isinf(s.astype(float))) & ~missing[num]
+        if inf.to_numpy().any():
+            counts = inf.sum()
+            detail = ", ".join(f"{c}: {int(n)}" for c, n in counts.items() if n)
+            notes.append(f"dropped {int(inf.any(axis=1).sum())} rows with infinite values ({detail})")
+            bad = bad | inf.any(axis=1)
+    for n in notes:
+        warnings.warn(n, DataWarning, stacklevel=4)
+    return ~bad, notes
+
+
+def _design_matrix(rhs, data):
+    from formulaic import model_matrix
+
+    try:
+        mm = model_matrix(rhs, data, na_action="ignore")
+    except Exception as exc:
+        raise OrdinalDataError(f"cannot build the design for {rhs!r}: {exc}") from exc
+    cols = [c for c in mm.columns if c != "Intercept"]
+    frame = mm[cols]
+    nonnum = [c for c in cols if not pd.api.types.is_numeric_dtype(frame[c].dtype)]
+    if nonnum:
+        raise OrdinalDataError(f"predictor columns are not numeric: {', '.join(nonnum)}")
+    X = np.asfortranarray(frame.to_numpy(dtype=float)) if cols else np.empty((len(data), 0))
+    return X, tuple(str(c) for c in cols), mm.model_spec
+
+
+def check_collinear(X, columns, weights=None):
+    """Refuse predictors that are constant or perfectly collinear, naming them.
+
+    The thresholds act as intercepts, so a constant column is collinear with them.  The
+    check uses the eigenvectors of the correlation matrix: each near-zero eigenvalue names
+    the columns that combine to a constant (common practice, no source).
+    """
+    if X.shape[1] == 0:
+        return
+    w = np.ones(len(X)) if weights is None else weights
+    mean = (w @ X) / w.sum()
+    Xc = X - mean
+    sd = np.sqrt((w @ (Xc * Xc)) / w.sum())
+    const = [c for c, s, m in zip(columns, sd, mean) if s <= 1e-12 * max(1.0, abs(m))]
+    if const:
+        raise CollinearityError(
+            f"predictors constant in the rows used (collinear with the thresholds): {', '.join(const)}"
+        )
+    Z = Xc / sd
+    vals, vecs = np.linalg.eigh((Z.T @ (Z * w[:, None])) / w.sum())
+    small = vals < 1e-10 * max(vals.max(), 1.0)
+    if small.any():
+        v = vecs[:, np.argmax(small)]
+        names = [c for c, a in zip(columns, v) if abs(a) > 1e-6]
+        raise CollinearityError(f"predictors are perfectly collinear: {', '.join(names)}")
+
+
+def prepare(formula, data, *, weights=None, levels=None):
+    """Validate and encode the data of one fit.
+
+    Returns
+    -------
+    PreparedData
+    """
+    if not isinstance(data, pd.DataFrame):
+        raise OrdinalDataError(f"data must be a pandas DataFrame, got {type(data).__name__}")
+    response, rhs = split_formula(formula)
+    if response not in data.columns:
+        raise OrdinalDataError(f"response column {response!r} is not in the data")
+    columns = _required_columns(rhs, data)
+    _check_mixed(data, columns)
+    w = _weights_array(weights, data)
+    keep, notes = _drop_unusable(data, response, columns, w)
+    data = data.loc[keep]
+    y, lv = encode_response(data[response], levels, name=response)
+    X, names, spec = _design_matrix(rhs, data)
+    warr = None if w is None else w[keep].to_numpy(float)
+    y, lv, more = _drop_empty_levels(y, lv, warr, response)
+    notes += more
+    return PreparedData(X, y, warr, lv, names, response, rhs, spec, data.index, notes)
+
+
+def _drop_empty_levels(y, levels, w, response):
+    counts = np.bincount(y, weights=w, minlength=len(levels))
+    empty = [levels[i] for i in np.flatnonzero(counts <= 0)]
+    if len(levels) - len(empty) < 2:
+        raise OrdinalDataError(
+            f"response {response!r} has fewer than two observed categories "
+            f"(levels {list(levels)!r}, counts {counts.tolist()})"
+        )
+    if not empty:
+        return y, levels, []
+    note = f"levels of {response!r} with no observations were dropped: {', '.join(map(str, empty))}"
+    warnings.warn(note, DataWarning, stacklevel=4)
+    kept = np.flatnonzero(counts > 0)
+    remap = np.full(len(levels), -1)
+    remap[kept] = np.arange(len(kept))
+    return remap[y], tuple(levels[i] for i in kept), [note]

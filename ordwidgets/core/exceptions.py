@@ -1,0 +1,39 @@
+"""Errors and warnings raised by the fitting core.
+
+Every refusal is a :class:`ValueError` subclass whose message names the column or level at
+fault; every repair the core makes on the user's behalf (dropped rows, dropped levels) is
+reported with a :class:`DataWarning`.
+"""
+
+__all__ = [
+    "OrdinalDataError",
+    "UnknownLinkError",
+    "CollinearityError",
+    "DataWarning",
+    "ConvergenceWarning",
+    "SeparationWarning",
+]
+
+
+class OrdinalDataError(ValueError):
+    """The data cannot be used for a cumulative link fit as given."""
+
+
+class UnknownLinkError(ValueError):
+    """The requested link is not one of the available links."""
+
+
+class CollinearityError(OrdinalDataError):
+    """Predictors are perfectly collinear (with each other or with the thresholds)."""
+
+
+class DataWarning(UserWarning):
+    """The core changed the data on the user's behalf (for example dropped rows)."""
+
+
+class ConvergenceWarning(UserWarning):
+    """The optimiser stopped before reaching a verified maximum of the likelihood."""
+
+
+class SeparationWarning(ConvergenceWarning):
+    """Estimates run to infinity because a predictor separates the categories."""

@@ -1,0 +1,176 @@
+"""``fit``: validate, start, iterate, unpack.
+
+The public entry point only prepares the data, builds the closed-form start (the
+thresholds-only maximum-likelihood solution ``theta_j = F^{-1}(cumulative proportion)``),
+runs the safeguarded Newton iteration of :mod:`ordwidgets.core.optimize` on standardised
+columns and maps the answer back to the user's scale.
+"""
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+
+from .design import check_collinear, prepare, threshold_labels
+from .exceptions import OrdinalDataError, SeparationWarning
+from .links import get_link
+from .objective import SortedDesign, sort_by_category
+from .optimize import check_convergence, newton_maximize
+from .results import FitResult, TrainingData
+
+__all__ = ["fit", "closed_form_thresholds", "standardise", "thresholds_increasing"]
+
+
+def closed_form_thresholds(link, counts):
+    """Thresholds-only MLE: ``theta_j = F^{-1}(sum_{k<=j} n_k / n)`` (exact, no iteration)."""
+    cum = np.cumsum(counts)[:-1] / np.sum(counts)
+    return get_link(link).ppf(cum)
+
+
+def thresholds_increasing(params, m):
+    """Feasibility rule of the model: finite, strictly increasing thresholds."""
+    theta = params[:m]
+    return bool(np.all(np.isfinite(params)) and np.all(np.diff(theta) > 0))
+
+
+def standardise(X, weights=None):
+    """Weighted column means and standard deviations used to scale the design internally."""
+    if X.shape[1] == 0:
+        return np.zeros(0), np.ones(0)
+    w = np.ones(len(X)) if weights is None else weights
+    mean = (w @ X) / w.sum()
+    sd = np.sqrt(np.maximum((w @ (X * X)) / w.sum() - mean**2, 0.0))
+    return mean, np.where(sd > 0, sd, 1.0)
+
+
+def _to_user_scale(m, mean, sd):
+    """Matrix ``A`` with ``params_user = A @ params_internal`` for centred, scaled columns."""
+    p = len(mean)
+    A = np.eye(m + p)
+    A[m:, m:] = np.diag(1.0 / sd)
+    A[:m, m:] = (mean / sd)[None, :]
+    return A
+
+
+def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100, tol=1e-10,
+        keep_data=True, callback=None):
+    """Fit a cumulative link model by maximum likelihood.
+
+    ``P(Y <= j | x) = F(theta_j - x'beta)``, ``j = 1..J-1``, with strictly increasing
+    thresholds and latent form ``y* = x'beta + epsilon`` (McCullagh 1980).  A positive
+    effect moves probability towards higher categories.
+
+    Parameters
+    ----------
+    formula : str
+        ``"response ~ predictors"`` in Wilkinson notation (formulaic); no intercept is fitted
+        (the thresholds play its role).
+    data : pandas.DataFrame
+    link : {"logit", "probit", "cloglog", "loglog", "cauchit"}
+    weights : str or array_like, optional
+        Non-negative frequency weights (column name or array).
+    levels : sequence, optional
+        Order of the response levels when the column is not an ordered Categorical.
+    max_iter : int
+        Maximum Newton steps.
+    tol : float
+        Convergence tolerance on the Newton decrement (log-likelihood units).
+    keep_data : bool
+        Keep the design in the result (needed for residuals, widgets and ``loglik_at``).
+    callback : callable, optional
+        ``callback(iteration, params, loglik, grad)`` after each Newton step.
+
+    Returns
+    -------
+    FitResult
+    """
+    lk = get_link(link)
+    prep = prepare(formula, data, weights=weights, levels=levels)
+    J, p = len(prep.levels), prep.X.shape[1]
+    m = J - 1
+    used = prep.y.shape[0] if prep.weights is None else int(np.count_nonzero(prep.weights))
+    if used < m + p:
+        raise OrdinalDataError(f"{used} rows for {m + p} parameters: fewer rows than parameters")
+    check_collinear(prep.X, prep.columns, prep.weights)
+    mean, sd = standardise(prep.X, prep.weights)
+    order, bounds = sort_by_category(prep.y, J)
+    Xs = prep.X[order]
+    Xs -= mean
+    Xs /= sd
+    design = SortedDesign(np.asfortranarray(Xs), bounds, None if prep.weights is None else prep.weights[order])
+    outcome, converged, message, condition = _maximise(design, lk, m, max_iter, tol, callback, formula)
+    A = _to_user_scale(m, mean, sd)
+    params = A @ outcome.params
+    cov = _covariance(outcome.hess, A)
+    if converged:
+        converged, message = _separation_check(outcome.params, outcome.hess, m, prep.columns, message)
+    grad_user = np.linalg.solve(A.T, outcome.grad)
+    training = TrainingData(prep.X, prep.y, prep.weights, prep.index) if keep_data else None
+    return FitResult(
+        link=lk, levels=prep.levels, threshold_names=tuple(threshold_labels(prep.levels)),
+        coef_names=prep.columns, params=params, cov=cov, loglik=float(outcome.loglik),
+        n_obs=float(design.counts().sum()), n_rows=int(len(prep.y)), iterations=outcome.iterations,
+        converged=converged, message=message, max_grad=float(np.max(np.abs(grad_user), initial=0.0)),
+        condition=condition, formula=formula, response=prep.response, model_spec=prep.model_spec,
+        notes=tuple(prep.notes), training=training, options={"weights": weights, "levels": levels},
+    )
+
+
+def _maximise(design, lk, m, max_iter, tol, callback, what):
+    start = np.concatenate([closed_form_thresholds(lk, design.counts()), np.zeros(design.X.shape[1])])
+
+    def evaluate(x, order):
+        return design.sums(lk, x, order=order)
+
+    def feasible(x):
+        return thresholds_increasing(x, m)
+
+    outcome = newton_maximize(evaluate, start, feasible=feasible, max_iter=max_iter, tol=tol, callback=callback)
+    if lk.name == "cauchit" and design.X.shape[1]:
+        outcome = _second_start(outcome, design, evaluate, feasible, m, max_iter, tol)
+    converged, message, condition = check_convergence(outcome, what=what)
+    return outcome, converged, message, condition
+
+
+def _second_start(first, design, evaluate, feasible, m, max_iter, tol):
+    """Cauchit guard: restart from the probit optimum and keep the higher maximum."""
+    probit = get_link("probit")
+    start = np.concatenate([closed_form_thresholds(probit, design.counts()), np.zeros(design.X.shape[1])])
+    pre = newton_maximize(lambda x, o: design.sums(probit, x, order=o), start, feasible=feasible, max_iter=max_iter, tol=tol)
+    second = newton_maximize(evaluate, pre.params, feasible=feasible, max_iter=max_iter, tol=tol)
+    best = second if second.loglik > first.loglik + 1e-9 else first
+    if abs(second.loglik - first.loglik) > 1e-6 * max(1.0, abs(first.loglik)):
+        warnings.warn(
+            "cauchit: two starting points reached different maxima "
+            f"({first.loglik:.6f} and {second.loglik:.6f}); the higher one is reported",
+            UserWarning, stacklevel=4,
+        )
+    return best
+
+
+def _covariance(hess, A):
+    try:
+        cov_s = np.linalg.inv(-hess)
+    except np.linalg.LinAlgError:
+        return np.full_like(hess, np.nan)
+    return A @ cov_s @ A.T
+
+
+def _separation_check(params_s, hess, m, columns, message):
+    """Flag estimates that ran away: huge on the standardised scale and not determined.
+
+    Complete or quasi-complete separation drives an estimate to infinity while its standard
+    error grows even faster; a standardised effect beyond 8 (a one-SD change moving the
+    latent scale by eight error units) with |z| < 2 is taken as that sign (common practice,
+    no source for the exact cut-offs).
+    """
+    with np.errstate(invalid="ignore"):
+        se = np.sqrt(np.diag(np.linalg.pinv(-hess)))
+    names = [f"threshold {i + 1}" for i in range(m)] + list(columns)
+    flagged = [n for n, v, s in zip(names, params_s, se) if abs(v) > 8 and not abs(v) > 2 * s]
+    if not flagged:
+        return True, message
+    msg = (f"estimates for {', '.join(flagged)} run towards infinity (complete or quasi-complete "
+           "separation): the data do not bound them")
+    warnings.warn(msg, SeparationWarning, stacklevel=3)
+    return False, msg

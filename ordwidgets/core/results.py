@@ -1,0 +1,258 @@
+"""The immutable result of a cumulative link fit."""
+from __future__ import annotations
+
+import html
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from .links import Link
+from .probabilities import category_probabilities, interval_logprob
+
+__all__ = ["FitResult", "TrainingData", "SIGN_CONVENTION"]
+
+SIGN_CONVENTION = (
+    "Sign convention: P(Y <= j | x) = F(theta_j - x'beta); a positive effect moves "
+    "probability towards higher categories."
+)
+
+
+@dataclass(frozen=True, eq=False)
+class TrainingData:
+    """The rows a result was fitted on (original order, after cleaning)."""
+
+    X: np.ndarray
+    y: np.ndarray
+    weights: np.ndarray | None
+    index: pd.Index
+    frame: pd.DataFrame | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class FitResult:
+    """Maximum-likelihood fit of a cumulative link model.
+
+    ``P(Y <= j | x) = F(theta_j - x'beta)`` (McCullagh 1980): positive effects shift
+    probability to higher categories.  Instances are immutable; derived quantities are
+    methods or properties.  ``eq=False`` keeps identity comparison, so a new fit always
+    notifies observers in the widgets.
+    """
+
+    link: Link
+    levels: tuple
+    threshold_names: tuple
+    coef_names: tuple
+    params: np.ndarray
+    cov: np.ndarray
+    loglik: float
+    n_obs: float
+    n_rows: int
+    iterations: int
+    converged: bool
+    message: str
+    max_grad: float
+    condition: float
+    formula: str
+    response: str
+    model_spec: object = None
+    notes: tuple = ()
+    training: TrainingData | None = field(default=None, repr=False)
+    options: dict = field(default_factory=dict)
+
+    # ---- parameters ------------------------------------------------------------------------
+    @property
+    def n_thresholds(self) -> int:
+        return len(self.threshold_names)
+
+    @property
+    def n_params(self) -> int:
+        return len(self.params)
+
+    @property
+    def names(self) -> list:
+        """Names of all parameters: thresholds first, then effects."""
+        return list(self.threshold_names) + list(self.coef_names)
+
+    @property
+    def thresholds(self) -> pd.Series:
+        """Fitted thresholds ``theta`` (increasing), labelled ``"lower->upper"``."""
+        return pd.Series(self.params[: self.n_thresholds], index=list(self.threshold_names), name="threshold")
+
+    @property
+    def coefficients(self) -> pd.Series:
+        """Fitted effects ``beta``; positive values move mass to higher categories."""
+        return pd.Series(self.params[self.n_thresholds :], index=list(self.coef_names), name="effect", dtype=float)
+
+    @property
+    def std_errors(self) -> pd.Series:
+        """Standard errors from the observed information (inverse negative Hessian)."""
+        with np.errstate(invalid="ignore"):
+            se = np.sqrt(np.diag(self.cov))
+        return pd.Series(se, index=self.names, name="std_error")
+
+    @property
+    def covariance(self) -> pd.DataFrame:
+        """Estimated covariance matrix of all parameters."""
+        return pd.DataFrame(self.cov, index=self.names, columns=self.names)
+
+    @property
+    def aic(self) -> float:
+        return -2.0 * self.loglik + 2.0 * self.n_params
+
+    @property
+    def bic(self) -> float:
+        return -2.0 * self.loglik + np.log(self.n_obs) * self.n_params
+
+    def table(self, level=0.95) -> pd.DataFrame:
+        """Estimates with standard errors, Wald z, two-sided p and Wald interval."""
+        _check_level(level)
+        est = pd.Series(self.params, index=self.names)
+        se = self.std_errors
+        z = est / se
+        q = stats.norm.isf((1 - level) / 2)
+        lo, hi = f"lower {level:.0%}", f"upper {level:.0%}"
+        return pd.DataFrame(
+            {"estimate": est, "std_error": se, "z": z, "p_value": 2 * stats.norm.sf(np.abs(z)),
+             lo: est - q * se, hi: est + q * se}
+        )
+
+    # ---- prediction ------------------------------------------------------------------------
+    def design(self, newdata=None) -> np.ndarray:
+        """Design matrix (no intercept) for ``newdata`` (default: the training rows)."""
+        if newdata is None:
+            return self._training().X
+        if self.model_spec is None or not self.coef_names:
+            return np.empty((len(newdata), 0))
+        mm = self.model_spec.get_model_matrix(newdata, na_action="ignore")
+        return mm[list(self.coef_names)].to_numpy(float)
+
+    def linear_predictor(self, newdata=None) -> np.ndarray:
+        """``eta = x'beta`` for each row."""
+        X = self.design(newdata)
+        return X @ self.params[self.n_thresholds :] if X.shape[1] else np.zeros(len(X))
+
+    def predict(self, newdata=None, kind="probabilities") -> pd.DataFrame | pd.Series:
+        """Predictions for ``newdata`` (default: the training rows).
+
+        Parameters
+        ----------
+        kind : {"probabilities", "cumulative", "latent", "class"}
+            Category probabilities (one column per level), cumulative probabilities
+            ``P(Y <= j)`` (one column per level), the linear predictor ``x'beta`` or the most
+            likely level.
+        """
+        eta = self.linear_predictor(newdata)
+        index = self._index(newdata, len(eta))
+        if kind == "latent":
+            return pd.Series(eta, index=index, name="latent")
+        probs = category_probabilities(self.link, self.params[: self.n_thresholds], eta)
+        cols = [str(v) for v in self.levels]
+        if kind == "probabilities":
+            return pd.DataFrame(probs, index=index, columns=cols)
+        if kind == "cumulative":
+            return pd.DataFrame(np.cumsum(probs, axis=1).clip(0, 1), index=index, columns=cols)
+        if kind == "class":
+            return pd.Series(np.asarray(self.levels, dtype=object)[probs.argmax(axis=1)], index=index, name="class")
+        raise ValueError(f"kind must be 'probabilities', 'cumulative', 'latent' or 'class', got {kind!r}")
+
+    def loglik_at(self, thresholds=None, coefficients=None) -> float:
+        """Log-likelihood of the training rows at other parameter values (cheap, no refit)."""
+        tr = self._training()
+        theta = self.params[: self.n_thresholds] if thresholds is None else np.asarray(thresholds, float)
+        beta = self.params[self.n_thresholds :] if coefficients is None else np.asarray(coefficients, float)
+        eta = tr.X @ beta if tr.X.shape[1] else np.zeros(len(tr.y))
+        cuts = np.concatenate([[-np.inf], theta, [np.inf]])
+        logp = interval_logprob(self.link, cuts[tr.y] - eta, cuts[tr.y + 1] - eta)
+        return float(logp.sum() if tr.weights is None else tr.weights @ logp)
+
+    def _training(self) -> TrainingData:
+        if self.training is None:
+            raise ValueError("this result does not hold its training data (fit with keep_data=True)")
+        return self.training
+
+    def _index(self, newdata, n):
+        if newdata is not None and hasattr(newdata, "index"):
+            return newdata.index
+        if newdata is None and self.training is not None:
+            return self.training.index
+        return pd.RangeIndex(n)
+
+    # ---- display ----------------------------------------------------------------------------
+    def facts(self) -> dict:
+        """Headline facts shown with the table."""
+        return {
+            "link": f"{self.link.name} (latent {self.link.latent})",
+            "rows": self.n_rows,
+            "n (weighted)": self.n_obs,
+            "log-likelihood": self.loglik,
+            "AIC": self.aic,
+            "BIC": self.bic,
+            "converged": self.converged,
+            "Newton steps": self.iterations,
+            "max |gradient|": self.max_grad,
+            "Hessian condition": self.condition,
+        }
+
+    def __str__(self) -> str:
+        head = f"Cumulative link fit: {self.formula}\n"
+        facts = "\n".join(f"  {k}: {_fmt(v)}" for k, v in self.facts().items())
+        notes = "".join(f"\n  note: {n}" for n in self.notes)
+        return f"{head}{facts}{notes}\n\n{self.table().to_string(float_format=_fmt)}\n\n{SIGN_CONVENTION}"
+
+    def __repr__(self) -> str:
+        state = "converged" if self.converged else "NOT converged"
+        return f"<FitResult {self.formula!r} link={self.link.name} n={self.n_rows} loglik={self.loglik:.4f} {state}>"
+
+    def _repr_html_(self) -> str:
+        return render_html(self)
+
+
+def _check_level(level):
+    if not (isinstance(level, (int, float)) and 0 < level < 1):
+        raise ValueError(f"level must be strictly between 0 and 1, got {level!r}")
+
+
+def _fmt(v) -> str:
+    if isinstance(v, (bool, np.bool_)):
+        return "yes" if v else "no"
+    if isinstance(v, (int, np.integer)):
+        return f"{v:,}"
+    if isinstance(v, (float, np.floating)):
+        if not np.isfinite(v):
+            return str(v)
+        return f"{v:.4g}" if (abs(v) >= 1e5 or (abs(v) < 1e-3 and v != 0)) else f"{v:.4f}"
+    return str(v)
+
+
+def render_html(res) -> str:
+    """HTML table of our own design; every data-derived string is escaped."""
+    e = html.escape
+    tab = res.table()
+    status = "converged" if res.converged else "NOT converged: " + res.message
+    colour = "#1b7f3b" if res.converged else "#b3261e"
+    facts = "".join(
+        f"<span style='margin-right:1.2em'><b>{e(k)}</b> {e(_fmt(v))}</span>" for k, v in res.facts().items()
+    )
+    head = "".join(f"<th style='text-align:right;padding:2px 8px'>{e(c)}</th>" for c in tab.columns)
+
+    def rows(names, title):
+        out = f"<tr><td colspan='{len(tab.columns) + 1}' style='font-weight:bold;padding-top:6px'>{e(title)}</td></tr>"
+        for n in names:
+            cells = "".join(f"<td style='text-align:right;padding:2px 8px'>{e(_fmt(v))}</td>" for v in tab.loc[n])
+            out += f"<tr><td style='padding:2px 8px'>{e(str(n))}</td>{cells}</tr>"
+        return out
+
+    body = rows(res.threshold_names, "Thresholds (cut points on the latent scale)")
+    if res.coef_names:
+        body += rows(res.coef_names, "Effects (positive = towards higher categories)")
+    notes = "".join(f"<div style='color:#8a5a00'>note: {e(n)}</div>" for n in res.notes)
+    return (
+        "<div class='ow-fit-result'>"
+        f"<div style='font-weight:bold'>Cumulative link fit &middot; {e(res.formula)}</div>"
+        f"<div style='color:{colour}'>{e(status)}</div>"
+        f"<div style='font-size:90%;margin:4px 0'>{facts}</div>{notes}"
+        f"<table style='border-collapse:collapse'><tr><th></th>{head}</tr>{body}</table>"
+        f"<div style='font-size:85%;color:#555;margin-top:4px'>{e(SIGN_CONVENTION)}</div></div>"
+    )
