@@ -157,14 +157,34 @@ class FitResult:
             return pd.Series(np.asarray(self.levels, dtype=object)[probs.argmax(axis=1)], index=index, name="class")
         raise ValueError(f"kind must be 'probabilities', 'cumulative', 'latent' or 'class', got {kind!r}")
 
-    def loglik_at(self, thresholds=None, coefficients=None) -> float:
-        """Log-likelihood of the training rows at other parameter values (cheap, no refit)."""
+    def error_bounds(self, thresholds=None, coefficients=None):
+        """Interval of the (standardised) latent error implied by each training row's category.
+
+        Row ``i`` in category ``k`` has ``P(Y = k) = F(upper_i) - F(lower_i)`` with
+        ``upper_i = theta_k - eta_i`` and ``lower_i = theta_{k-1} - eta_i`` (``-inf`` / ``inf``
+        at the ends).  This is the one place that maps parameters to per-row intervals;
+        log-likelihoods at edited thresholds and surrogate residuals are built on it.
+
+        Parameters
+        ----------
+        thresholds, coefficients : array_like, optional
+            Values to use instead of the fitted ones (for example edited thresholds).
+
+        Returns
+        -------
+        lower, upper : ndarray, shape (n_rows,)
+        """
         tr = self._training()
         theta = self.params[: self.n_thresholds] if thresholds is None else np.asarray(thresholds, float)
         beta = self.params[self.n_thresholds :] if coefficients is None else np.asarray(coefficients, float)
         eta = tr.X @ beta if tr.X.shape[1] else np.zeros(len(tr.y))
         cuts = np.concatenate([[-np.inf], theta, [np.inf]])
-        logp = interval_logprob(self.link, cuts[tr.y] - eta, cuts[tr.y + 1] - eta)
+        return cuts[tr.y] - eta, cuts[tr.y + 1] - eta
+
+    def loglik_at(self, thresholds=None, coefficients=None) -> float:
+        """Log-likelihood of the training rows at other parameter values (cheap, no refit)."""
+        tr = self._training()
+        logp = interval_logprob(self.link, *self.error_bounds(thresholds, coefficients))
         return float(logp.sum() if tr.weights is None else tr.weights @ logp)
 
     def _training(self) -> TrainingData:
