@@ -1,0 +1,194 @@
+"""Invented demo data: a city's street-tree inventory with known true effects.
+
+The scenario is made up for ordwidgets and the numbers come from a random generator, not
+from any real city.  Each row is one street tree with its health grade
+(``poor < fair < good < excellent``) as assessed by an (imaginary) inspector, and:
+
+``diameter``
+    trunk diameter at breast height, in cm;
+``years``
+    years since planting;
+``pit_area``
+    area of open soil in the planting pit, in square metres;
+``species``
+    species group (``linden``, ``maple``, ``plane``, ``locust``; ``linden`` is the reference);
+``arterial``
+    1 when the tree stands on an arterial road (traffic, road salt), else 0.
+
+The grades follow a cumulative logit model with two planted departures from the plain
+proportional-odds model, so the checking tools have something to find:
+
+* ``arterial`` is **non-parallel**: it pushes trees into ``poor`` much more than it keeps
+  them out of ``excellent`` (an effect that shrinks across the thresholds);
+* the latent spread grows **mildly with age** (heteroscedasticity): older trees differ more.
+
+In the notation of the model (McCullagh 1980; Peterson & Harrell 1990 for the non-parallel
+term)::
+
+    P(grade <= j | x) = F((theta_j - x'beta - arterial * delta_j) / exp(zeta * years))
+
+with ``F`` the logistic distribution function.  A positive effect moves probability towards
+higher grades.  :func:`street_tree_truth` returns every true value; :func:`true_probabilities`
+evaluates the true model on any frame with the same columns.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy.special import expit
+
+__all__ = ["GRADES", "SPECIES", "DemoTruth", "street_trees", "street_tree_truth", "true_probabilities"]
+
+GRADES = ("poor", "fair", "good", "excellent")
+SPECIES = ("linden", "maple", "plane", "locust")
+_SPECIES_SHARE = (0.35, 0.30, 0.20, 0.15)
+_SPECIES_GROWTH = (1.0, 1.1, 1.25, 0.9)  # relative trunk growth per year
+
+
+@dataclass(frozen=True)
+class DemoTruth:
+    """The true model behind :func:`street_trees`.
+
+    Attributes
+    ----------
+    link : str
+        Link of the true model (``"logit"``).
+    levels : tuple of str
+        Health grades from worst to best.
+    thresholds : tuple of float
+        ``theta_j`` for a tree off arterial roads, lowest cut first.
+    effects : dict
+        Parallel effects ``beta`` keyed by the design-column names that ``ow.fit`` gives for
+        :attr:`formula` (``species[T.maple]`` is maple against linden).
+    nonparallel : dict
+        ``{"arterial": (delta_1, delta_2, delta_3)}``: the arterial effect at each threshold;
+        with ``nonparallel=False`` in :func:`street_trees` the effect is parallel and equal to
+        :attr:`arterial_parallel` instead.
+    arterial_parallel : float
+        The arterial effect used when the data are made without the non-parallel departure.
+    scale : dict
+        ``{"years": zeta}``: the latent spread is ``exp(zeta * years)`` (``zeta = 0`` when made
+        with ``heteroscedastic=False``).
+    formula : str
+        A formula naming every predictor once.
+    """
+
+    link: str = "logit"
+    levels: tuple = GRADES
+    thresholds: tuple = (-1.6, 0.3, 2.4)
+    effects: dict = field(default_factory=lambda: {
+        "diameter": 0.03, "years": -0.05, "pit_area": 0.35,
+        "species[T.maple]": -0.6, "species[T.plane]": 0.4, "species[T.locust]": 0.2,
+    })
+    nonparallel: dict = field(default_factory=lambda: {"arterial": (-1.4, -0.8, -0.3)})
+    arterial_parallel: float = -0.8
+    scale: dict = field(default_factory=lambda: {"years": 0.015})
+    formula: str = "grade ~ diameter + years + pit_area + species + arterial"
+
+
+def street_tree_truth(*, nonparallel=True, heteroscedastic=True) -> DemoTruth:
+    """The true model of :func:`street_trees` made with the same switches.
+
+    Parameters
+    ----------
+    nonparallel : bool
+        Whether the arterial effect differs across thresholds.
+    heteroscedastic : bool
+        Whether the latent spread grows with ``years``.
+
+    Returns
+    -------
+    DemoTruth
+    """
+    base = DemoTruth()
+    delta = base.nonparallel["arterial"] if nonparallel else (base.arterial_parallel,) * 3
+    zeta = base.scale["years"] if heteroscedastic else 0.0
+    return DemoTruth(nonparallel={"arterial": tuple(delta)}, scale={"years": zeta})
+
+
+def _predictors(n, rng):
+    """Draw the tree attributes (plausible ranges, moderate correlation of size and age)."""
+    sp = rng.choice(len(SPECIES), size=n, p=_SPECIES_SHARE)
+    years = rng.integers(1, 41, size=n)
+    pit = np.clip(np.round(rng.lognormal(np.log(2.0), 0.45, size=n), 1), 0.5, 9.0)
+    growth = np.asarray(_SPECIES_GROWTH)[sp] * (pit / 2.0) ** 0.2 * rng.lognormal(0.0, 0.3, size=n)
+    diameter = np.round(4.0 + 1.3 * years * growth)
+    return pd.DataFrame({
+        "tree_id": [f"T{i:05d}" for i in range(1, n + 1)],
+        "diameter": diameter,
+        "years": years,
+        "pit_area": pit,
+        "species": pd.Categorical.from_codes(sp, categories=list(SPECIES)),
+        "arterial": (rng.random(n) < 0.3).astype(int),
+    })
+
+
+def _cumulative(frame, truth):
+    """True ``P(grade <= j)`` for each row, shape ``(n, J - 1)``, written out with scipy."""
+    eta = sum(frame[c].to_numpy(float) * b for c, b in truth.effects.items() if c in frame)
+    for name, b in truth.effects.items():
+        if name.startswith("species[T."):
+            eta = eta + b * (frame["species"].astype(str).to_numpy() == name[10:-1])
+    shift = frame["arterial"].to_numpy(float)[:, None] * np.asarray(truth.nonparallel["arterial"])
+    spread = np.exp(truth.scale["years"] * frame["years"].to_numpy(float))[:, None]
+    return expit((np.asarray(truth.thresholds)[None, :] - eta[:, None] - shift) / spread)
+
+
+def true_probabilities(frame, truth=None) -> pd.DataFrame:
+    """True probability of each grade for the rows of ``frame``.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Columns ``diameter``, ``years``, ``pit_area``, ``species`` and ``arterial``.
+    truth : DemoTruth, optional
+        Defaults to the full model (both departures present).
+
+    Returns
+    -------
+    pandas.DataFrame
+        One column per grade, rows summing to one.
+    """
+    cum = _cumulative(frame, truth or street_tree_truth())
+    ones, zeros = np.ones((len(frame), 1)), np.zeros((len(frame), 1))
+    probs = np.diff(np.hstack([zeros, cum, ones]), axis=1)
+    return pd.DataFrame(probs, index=frame.index, columns=list(GRADES))
+
+
+def street_trees(n=1500, *, seed=2026, nonparallel=True, heteroscedastic=True) -> pd.DataFrame:
+    """Make an invented street-tree inventory with known true effects.
+
+    Parameters
+    ----------
+    n : int
+        Number of trees.
+    seed : int
+        Seed of :func:`numpy.random.default_rng`; the same seed gives the same frame.
+    nonparallel : bool
+        Plant the non-parallel arterial effect (else the effect is parallel).
+    heteroscedastic : bool
+        Plant the growth of the latent spread with age (else the spread is constant).
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``tree_id``, ``diameter``, ``years``, ``pit_area``, ``species``, ``arterial`` and the
+        response ``grade`` (an ordered Categorical ``poor < fair < good < excellent``).
+
+    Examples
+    --------
+    >>> from ordwidgets.demo import street_trees
+    >>> trees = street_trees(200, seed=1)
+    >>> list(trees["grade"].cat.categories)
+    ['poor', 'fair', 'good', 'excellent']
+    """
+    if not isinstance(n, (int, np.integer)) or n < 1:
+        raise ValueError(f"n must be a positive integer, got {n!r}")
+    rng = np.random.default_rng(seed)
+    frame = _predictors(int(n), rng)
+    cum = _cumulative(frame, street_tree_truth(nonparallel=nonparallel, heteroscedastic=heteroscedastic))
+    codes = (rng.random(len(frame))[:, None] > cum).sum(axis=1)
+    frame["grade"] = pd.Categorical.from_codes(codes, categories=list(GRADES), ordered=True)
+    return frame
