@@ -6,5 +6,8 @@ a positive effect ``beta`` moves probability towards higher categories.
 from .core import *  # noqa: F401,F403
 from .core import __all__ as _core_all
 
+from ._statefile import StateFileError
+from .state import FitState
+
 __version__ = "0.1.0"
-__all__ = list(_core_all)
+__all__ = list(_core_all) + ["FitState", "StateFileError"]

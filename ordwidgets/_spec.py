@@ -1,0 +1,156 @@
+"""Helpers of :class:`~ordwidgets.state.FitState` about the model spec and scenarios.
+
+Pure functions of a formula and a data frame; nothing here touches widgets.
+"""
+from __future__ import annotations
+
+import inspect
+import re
+
+import numpy as np
+import pandas as pd
+
+from .core import OrdinalDataError, fit as core_fit, link_names
+from .core.design import split_formula
+
+__all__ = ["variables", "without", "is_categorical", "complete_scenario", "match_dtypes",
+           "model_kwargs", "link_rows", "default_value", "grid_values"]
+
+
+def _formula(rhs):
+    from formulaic import Formula
+
+    return Formula(rhs)
+
+
+def variables(formula) -> list:
+    """Predictor variables named on the right of ``formula``, in order of first use."""
+    if not formula:
+        return []
+    _, rhs = split_formula(formula)
+    out = []
+    for term in _formula(rhs):
+        out += [v for v in _term_variables(term) if v not in out]
+    return out
+
+
+def _term_variables(term):
+    text = str(term)
+    if text == "1":
+        return []
+    found = sorted(map(str, _formula(text).required_variables))
+    return sorted(found, key=lambda v: text.find(v))
+
+
+def without(formula, dropped) -> str:
+    """``formula`` with every term that uses a predictor in ``dropped`` removed."""
+    if not dropped:
+        return formula
+    lhs, rhs = split_formula(formula)
+    keep = [str(t) for t in _formula(rhs) if str(t) != "1" and not set(_term_variables(t)) & set(dropped)]
+    return f"{lhs} ~ {' + '.join(keep) if keep else '1'}"
+
+
+def is_categorical(column, name, formula) -> bool:
+    """Non-numeric, boolean, or wrapped in ``C(...)`` in the formula."""
+    if re.search(r"\bC\(\s*" + re.escape(name) + r"\b", formula or ""):
+        return True
+    dtype = column.dtype
+    return pd.api.types.is_bool_dtype(dtype) or not pd.api.types.is_numeric_dtype(dtype)
+
+
+def default_value(column, categorical):
+    """Median of a number, most common value of a level (ties: first in sorted order)."""
+    col = column.dropna()
+    if categorical:
+        return _native(col.value_counts(sort=True).index[0])
+    return float(np.median(col.to_numpy(float)))
+
+
+def grid_values(column, categorical, n=101):
+    """x values of the explorer: the observed levels, or ``n`` points over the observed range."""
+    col = column.dropna()
+    if categorical:
+        if isinstance(col.dtype, pd.CategoricalDtype):
+            return [_native(v) for v in col.cat.categories if (col == v).any()]
+        return [_native(v) for v in sorted(col.unique(), key=lambda v: (str(type(v)), v))]
+    values = col.to_numpy(float)
+    return list(np.linspace(values.min(), values.max(), n))
+
+
+def _native(value):
+    return value.item() if isinstance(value, np.generic) else value
+
+
+def complete_scenario(values, data, formula, *, lenient=False) -> dict:
+    """Validated scenario: every predictor present, numbers finite, levels observed.
+
+    Missing predictors get :func:`default_value`.  Unknown names or bad values raise
+    ``TraitError`` unless ``lenient`` (then they are dropped or replaced by the default).
+    """
+    from traitlets import TraitError
+
+    names = variables(formula)
+    unknown = [k for k in values if k not in names]
+    if unknown and not lenient:
+        raise TraitError(f"scenario names unknown predictors: {unknown}")
+    out = {}
+    for name in names:
+        categorical = is_categorical(data[name], name, formula)
+        fallback = default_value(data[name], categorical)
+        try:
+            out[name] = _check_value(values[name], data[name], categorical) if name in values else fallback
+        except (TraitError, TypeError, ValueError):
+            if not lenient:
+                raise
+            out[name] = fallback
+    return out
+
+
+def _check_value(value, column, categorical):
+    from traitlets import TraitError
+
+    value = _native(value)
+    if categorical:
+        if not (column == value).any():
+            raise TraitError(f"{value!r} is not an observed level of {column.name!r}")
+        return value
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not np.isfinite(value):
+        raise TraitError(f"{column.name!r} needs a finite number, got {value!r}")
+    return float(value)
+
+
+def match_dtypes(frame, data) -> pd.DataFrame:
+    """Give the columns of a scenario frame the dtypes of ``data`` (levels of categoricals)."""
+    for c in frame.columns:
+        if c in data.columns and isinstance(data[c].dtype, pd.CategoricalDtype):
+            frame[c] = pd.Categorical(frame[c], dtype=data[c].dtype)
+    return frame
+
+
+def model_kwargs(nonparallel, scale_by, included) -> dict:
+    """Keyword arguments of ``ow.fit`` for non-parallel and scale effects (when supported)."""
+    wanted = {"nonparallel": [v for v in nonparallel if v in included],
+              "scale_by": [v for v in scale_by if v in included]}
+    params = inspect.signature(core_fit).parameters
+    out = {}
+    for key, names in wanted.items():
+        if names and key not in params:
+            raise OrdinalDataError(f"{key} effects are not available in this version of the fitting core")
+        if names:
+            out[key] = names
+    return out
+
+
+def link_rows(formula, data, options, extra) -> list:
+    """loglik / AIC / BIC of every link for one spec (a failed fit gives an ``error`` row)."""
+    rows = []
+    for name in link_names():
+        try:
+            res = core_fit(formula, data, link=name, **options, **extra)
+            rows.append({"link": name, "loglik": res.loglik, "aic": res.aic, "bic": res.bic,
+                         "converged": bool(res.converged), "error": ""})
+        except Exception as exc:  # noqa: BLE001 - reported in the table, never raised
+            rows.append({"link": name, "loglik": np.nan, "aic": np.nan, "bic": np.nan,
+                         "converged": False, "error": str(exc)})
+    return rows

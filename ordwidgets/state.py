@@ -1,0 +1,369 @@
+"""``FitState``: the one object the panels share.
+
+Every panel observes a single counter, :attr:`FitState.updates`, and reads
+:attr:`FitState.changed` to learn *what* changed in the last processed user action:
+
+``"fit"``         a refit replaced :attr:`FitState.fit` (spec, data, options or link changed);
+``"thresholds"``  the shown thresholds were edited (or reset);
+``"scenario"``    the what-if scenario or the baseline changed;
+``"focus"``       the predictor on the explorer's x-axis changed;
+``"residuals"``   residual draws or seed changed;
+``"selection"``   the brushed rows changed;
+``"link_table"``  the loglik / AIC / BIC comparison of the links arrived.
+
+One coordinator (:meth:`FitState._flush`) turns raw trait changes into one processed update:
+it refits only when the spec changed, recomputes the log-likelihood cheaply on threshold
+edits, then bumps ``updates`` once.  :meth:`FitState.batch` merges several edits into one
+update.  The model is ``P(Y <= j | x) = F(theta_j - x'beta)``: a positive effect moves
+probability towards higher categories.
+"""
+from __future__ import annotations
+
+import contextlib
+import threading
+
+import numpy as np
+import pandas as pd
+import traitlets as tl
+
+from .core import FitResult, OrdinalDataError, fit as core_fit, link_names
+from . import _spec
+
+__all__ = ["FitState", "CHANGE_KINDS"]
+
+CHANGE_KINDS = ("fit", "thresholds", "scenario", "focus", "residuals", "selection", "link_table")
+_KIND_OF = {
+    "data": "spec", "formula": "spec", "link": "spec", "options": "spec", "dropped": "spec",
+    "nonparallel": "spec", "scale_by": "spec", "thresholds": "thresholds", "scenario": "scenario",
+    "baseline": "scenario", "focus": "focus", "residual_draws": "residuals",
+    "residual_seed": "residuals", "selection": "selection", "link_table": "link_table",
+}
+_SPEC = ("data", "formula", "link", "options", "dropped", "nonparallel", "scale_by")
+_MIN_GAP = 1e-6
+
+
+class FitState(tl.HasTraits):
+    """Shared, observable state of one cumulative link fit and the edits made to it.
+
+    Build it with :meth:`from_fit` or ``FitState(data=df, formula="y ~ x", link="logit")``.
+    Refits happen only when :attr:`data`, :attr:`formula`, :attr:`options`, :attr:`dropped`,
+    :attr:`nonparallel`, :attr:`scale_by` or :attr:`link` change.
+    """
+
+    data = tl.Instance(pd.DataFrame, allow_none=True, help="The data frame the model is fitted on.")
+    formula = tl.Unicode("", help="Full model formula 'response ~ predictors' (Wilkinson notation).")
+    link = tl.Enum(list(link_names()), default_value="logit", help="Link; setting it refits.")
+    options = tl.Dict(help="Fit options passed through to ow.fit: 'weights' (column) and 'levels'.")
+    dropped = tl.Tuple(help="Predictors left out of the model (model controls: 'out').")
+    nonparallel = tl.Tuple(help="Predictors with a separate effect per threshold (non-parallel).")
+    scale_by = tl.Tuple(help="Predictors with a scale effect on the latent spread.")
+    fit = tl.Instance(FitResult, allow_none=True, help="Maximum-likelihood fit of the current spec.")
+    thresholds = tl.Tuple(help="Thresholds shown (strictly increasing); the fitted ones until edited.")
+    loglik = tl.Float(np.nan, help="Log-likelihood at the shown thresholds with the fitted effects.")
+    lr_distance = tl.Float(0.0, help="2 * (fitted loglik - shown loglik): likelihood-ratio distance.")
+    scenario = tl.Dict(help="Predictor values of the what-if case (default median / most common).")
+    baseline = tl.Dict(help="Predictor values of the comparison case (same defaults).")
+    focus = tl.Unicode("", help="Predictor on the explorer's x-axis.")
+    residual_draws = tl.Int(1, min=1, max=50, help="Surrogate residual draws per row.")
+    residual_seed = tl.Int(0, min=0, help="Seed of the surrogate residual draws.")
+    selection = tl.Tuple(help="Positions (0..n_rows-1 of the fitted rows) brushed in the residual panel.")
+    link_table = tl.List(help="Rows {link, loglik, aic, bic, error} for every link of the current spec.")
+    busy = tl.Unicode("", help="What long work is running ('' when idle).")
+    error = tl.Unicode("", help="Message of the last refused spec change ('' when fine).")
+    changed = tl.Tuple(help="Change kinds processed in the last update (see CHANGE_KINDS).")
+    updates = tl.Int(0, help="Counter bumped once after every processed change.")
+
+    def __init__(self, *, executor=None, **kwargs):
+        self.executor = executor
+        self._depth, self._pending, self._lock = 0, set(), threading.RLock()
+        self._good = None
+        preset = kwargs.pop("fit", None)
+        with self._quiet():
+            super().__init__(**kwargs)
+            self._install(preset if preset is not None else self._run_fit())
+        self._pending.clear()
+        self._finish({"fit", "thresholds", "scenario", "focus"})
+
+    # ---- construction ------------------------------------------------------------------------
+    @classmethod
+    def from_fit(cls, res, data=None, **kwargs):
+        """State around an existing fit (no refit).  ``data`` defaults to the fit's own frame."""
+        if data is None:
+            data = getattr(res.training, "frame", None) if res.training is not None else None
+        if data is None:
+            raise ValueError("from_fit needs data=: this result does not hold its data frame")
+        opts = {k: v for k, v in dict(res.options).items() if k in ("weights", "levels") and v is not None}
+        extra = {k: tuple(res.options.get(k) or ()) for k in ("nonparallel", "scale_by")}
+        return cls(data=data, formula=res.formula, link=res.link.name, options=opts, fit=res, **extra, **kwargs)
+
+    # ---- derived, read-only views ----------------------------------------------------------------
+    @property
+    def theta(self) -> np.ndarray:
+        """Shown thresholds as an array."""
+        return np.asarray(self.thresholds, float)
+
+    @property
+    def edited(self) -> bool:
+        """True when the shown thresholds differ from the fitted ones."""
+        return not np.array_equal(self.theta, self.fit.thresholds.to_numpy())
+
+    @property
+    def predictors(self) -> list:
+        """All predictor variables of :attr:`formula` (whether in or out of the model)."""
+        return _spec.variables(self.formula)
+
+    @property
+    def included(self) -> list:
+        """Predictors currently in the model."""
+        return [v for v in self.predictors if v not in self.dropped]
+
+    @property
+    def model_formula(self) -> str:
+        """The formula actually fitted (``formula`` without the dropped predictors)."""
+        return _spec.without(self.formula, self.dropped)
+
+    @property
+    def frame(self) -> pd.DataFrame:
+        """Rows of :attr:`data` used by the fit, in fit order."""
+        return self.data.loc[self.fit.training.index]
+
+    def is_categorical(self, name) -> bool:
+        """Whether predictor ``name`` is treated as categorical (dropdown rather than slider)."""
+        return _spec.is_categorical(self.data[name], name, self.formula)
+
+    def scenario_frame(self, which="scenario", focus_values=None) -> pd.DataFrame:
+        """One-row frame of a scenario, or one row per ``focus_values`` of :attr:`focus`."""
+        values = dict(self.scenario if which == "scenario" else self.baseline)
+        n = 1 if focus_values is None else len(focus_values)
+        frame = pd.DataFrame({k: [v] * n for k, v in values.items()})
+        if focus_values is not None:
+            frame[self.focus] = list(focus_values)
+        return _spec.match_dtypes(frame, self.data)
+
+    def eta_of(self, frame) -> np.ndarray:
+        """Linear predictor ``x'beta`` of the rows of ``frame`` under the current fit."""
+        return self.fit.linear_predictor(frame)
+
+    # ---- validation (one place) --------------------------------------------------------------------
+    @tl.validate("thresholds")
+    def _valid_thresholds(self, proposal):
+        values = tuple(float(v) for v in proposal["value"])
+        theta = np.asarray(values)
+        if self.fit is not None and len(values) != self.fit.n_thresholds:
+            raise tl.TraitError(f"{self.fit.n_thresholds} thresholds expected, got {len(values)}")
+        if not np.all(np.isfinite(theta)):
+            raise tl.TraitError("thresholds must be finite")
+        if np.any(np.diff(theta) <= 0):
+            raise tl.TraitError(f"thresholds must be strictly increasing, got {list(values)}")
+        return values
+
+    @tl.validate("scenario", "baseline")
+    def _valid_scenario(self, proposal):
+        if self.data is None or not self.formula:
+            return dict(proposal["value"])
+        return _spec.complete_scenario(proposal["value"], self.data, self.formula)
+
+    @tl.validate("focus")
+    def _valid_focus(self, proposal):
+        name = proposal["value"]
+        if name and self.formula and name not in self.included:
+            raise tl.TraitError(f"focus must be one of the predictors in the model {self.included}, got {name!r}")
+        return name
+
+    @tl.validate("selection")
+    def _valid_selection(self, proposal):
+        rows = np.unique(np.asarray(proposal["value"], dtype=np.int64))
+        n = self.fit.n_rows if self.fit is not None else 0
+        if rows.size and (rows[0] < 0 or rows[-1] >= n):
+            raise tl.TraitError(f"selection holds row positions outside 0..{n - 1}")
+        return tuple(int(r) for r in rows)
+
+    @tl.validate("dropped", "nonparallel", "scale_by")
+    def _valid_names(self, proposal):
+        names = tuple(dict.fromkeys(str(v) for v in proposal["value"]))
+        unknown = [v for v in names if self.formula and v not in self.predictors]
+        if unknown:
+            raise tl.TraitError(f"not predictors of {self.formula!r}: {unknown}")
+        return names
+
+    # ---- edits -----------------------------------------------------------------------------------
+    def set_threshold(self, i, value):
+        """Move threshold ``i`` to ``value``, clamped strictly between its neighbours."""
+        theta = self.theta.copy()
+        lo = theta[i - 1] + _MIN_GAP if i > 0 else -np.inf
+        hi = theta[i + 1] - _MIN_GAP if i + 1 < len(theta) else np.inf
+        theta[i] = float(np.clip(value, lo, hi))
+        self.thresholds = tuple(theta)
+        return theta[i]
+
+    def reset_thresholds(self):
+        """Show the fitted thresholds again."""
+        self.thresholds = tuple(self.fit.thresholds.to_numpy())
+
+    def reset(self):
+        """Restore the fitted state: fitted thresholds, default scenarios, no selection."""
+        with self.batch():
+            self.reset_thresholds()
+            self.scenario, self.baseline, self.selection = {}, {}, ()
+
+    @contextlib.contextmanager
+    def batch(self):
+        """Merge every change made inside the block into one processed update."""
+        with self._lock:
+            self._depth += 1
+            try:
+                with self.hold_trait_notifications():
+                    yield self
+            finally:
+                self._depth -= 1
+            self._flush()
+
+    # ---- the coordinator -----------------------------------------------------------------------------
+    @tl.observe(*_KIND_OF)
+    def _note_change(self, change):
+        self._pending.add(_KIND_OF[change["name"]])
+        self._flush()
+
+    def _flush(self):
+        with self._lock:
+            if self._depth or not self._pending:
+                return
+            kinds, self._pending = set(self._pending), set()
+            with self._quiet():
+                if "spec" in kinds:
+                    kinds |= self._refit()
+                if kinds & {"fit", "thresholds"}:
+                    self._update_loglik()
+            kinds |= self._pending - {"spec"}
+            self._pending.clear()
+            kinds.discard("spec")
+            if kinds:
+                self._finish(kinds)
+
+    @contextlib.contextmanager
+    def _quiet(self):
+        """Derived changes made inside are recorded, not processed on their own."""
+        self._depth += 1
+        try:
+            yield
+        finally:
+            self._depth -= 1
+
+    def _finish(self, kinds):
+        self.changed = tuple(k for k in CHANGE_KINDS if k in kinds)
+        self.updates += 1
+
+    def _refit(self):
+        self.busy = "refitting"
+        try:
+            res = self._run_fit()
+        except (OrdinalDataError, ValueError, np.linalg.LinAlgError) as exc:
+            self._restore_good(f"refit refused: {exc}")
+            return set()
+        finally:
+            self.busy = ""
+        self._install(res)
+        return {"fit", "thresholds", "scenario", "focus"}
+
+    def _run_fit(self):
+        kwargs = {k: v for k, v in self.options.items() if k in ("weights", "levels")}
+        kwargs.update(_spec.model_kwargs(self.nonparallel, self.scale_by, self.included))
+        return core_fit(self.model_formula, self.data, link=self.link, **kwargs)
+
+    def _install(self, res):
+        self.fit = res
+        self.error = ""
+        self._good = {k: getattr(self, k) for k in _SPEC}
+        self.thresholds = tuple(res.thresholds.to_numpy())
+        self.scenario = _spec.complete_scenario(self.scenario, self.data, self.formula, lenient=True)
+        self.baseline = _spec.complete_scenario(self.baseline, self.data, self.formula, lenient=True)
+        if self.focus not in self.included:
+            self.focus = self.included[0] if self.included else ""
+        self.selection = tuple(r for r in self.selection if r < res.n_rows)
+        self._update_loglik()
+
+    def _restore_good(self, message):
+        for name, value in (self._good or {}).items():
+            setattr(self, name, value)
+        self._pending.discard("spec")
+        self.error = message
+
+    def _update_loglik(self):
+        ll = self.fit.loglik if not self.edited else self.fit.loglik_at(thresholds=self.theta)
+        self.loglik = float(ll)
+        self.lr_distance = float(max(2.0 * (self.fit.loglik - ll), 0.0))
+
+    # ---- long work off the interaction path -------------------------------------------------------------
+    def run_long(self, label, work, done):
+        """Run ``work()`` then ``done(result)``: inline without an executor, else in it.
+
+        ``busy`` holds ``label`` meanwhile.  Results of work started for an older fit are
+        dropped (``done`` is not called).
+        """
+        fit_then = self.fit
+        self.busy = label
+
+        def finish(result):
+            with self._lock:
+                self.busy = ""
+                if self.fit is fit_then:
+                    done(result)
+
+        if self.executor is None:
+            finish(work())
+            return
+        self.executor.submit(work).add_done_callback(lambda fut: finish(_result_or_error(fut)))
+
+    def request_link_table(self):
+        """Compute the loglik / AIC / BIC of every link for the current spec (once per spec)."""
+        key = self._spec_key()
+        if getattr(self, "_table_key", None) == key:
+            return
+        self._table_key = key
+        spec = dict(formula=self.model_formula, data=self.data, options=dict(self.options),
+                    extra=_spec.model_kwargs(self.nonparallel, self.scale_by, self.included))
+        self.run_long("comparing links", lambda: _spec.link_rows(**spec), self._set_link_table)
+
+    def _set_link_table(self, rows):
+        self.link_table = rows if isinstance(rows, list) else [{"link": "", "error": str(rows)}]
+
+    def _spec_key(self):
+        return (id(self.data), self.model_formula, repr(sorted(self.options.items())), self.nonparallel, self.scale_by)
+
+    # ---- files -------------------------------------------------------------------------------------------
+    def to_dict(self) -> dict:
+        """Plain JSON-able description of the spec and the edits (no data)."""
+        from ._statefile import state_to_dict
+
+        return state_to_dict(self)
+
+    def save(self, path):
+        """Write the spec, link, edits, scenarios and seeds as JSON (no data, no code)."""
+        from ._statefile import write_state
+
+        write_state(self, path)
+
+    @classmethod
+    def load(cls, path, data, **kwargs):
+        """Rebuild a state from :meth:`save` output and the same ``data``.
+
+        Raises
+        ------
+        StateFileError
+            If the file is malformed, hostile or does not match ``data``; nothing in it is executed.
+        """
+        from ._statefile import read_state
+
+        return read_state(cls, path, data, **kwargs)
+
+    def close(self):
+        """Stop long work started by this state."""
+        if self.executor is not None:
+            self.executor.shutdown(wait=False, cancel_futures=True)
+
+
+def _result_or_error(fut):
+    try:
+        return fut.result()
+    except Exception as exc:  # shown in the link table as an error row
+        return exc

@@ -1,0 +1,185 @@
+"""FitState: refit rules, validation, batching, reset and files."""
+import json
+
+import numpy as np
+import pytest
+import traitlets
+
+import ordwidgets as ow
+from ordwidgets.state import FitState
+from ordwidgets._statefile import StateFileError
+from ow_sim import FORMULA, simulate
+
+
+@pytest.fixture(scope="module")
+def data():
+    return simulate()
+
+
+@pytest.fixture
+def state(data):
+    return FitState(data=data, formula=FORMULA)
+
+
+def test_state_matches_a_direct_fit(state, data):
+    ref = ow.fit(FORMULA, data)  # reference: the core fitter called directly
+    np.testing.assert_allclose(state.theta, ref.thresholds.to_numpy(), rtol=0, atol=1e-12)
+    assert state.loglik == pytest.approx(ref.loglik, abs=1e-9)
+    assert state.lr_distance == 0.0 and not state.edited
+
+
+def test_from_fit_does_not_refit(data):
+    res = ow.fit(FORMULA, data, link="probit")
+    st = FitState.from_fit(res, data=data)
+    assert st.fit is res and st.link == "probit"
+
+
+def test_threshold_edit_is_cheap_and_exact(state):
+    before = state.fit
+    theta = state.theta.copy()
+    theta[1] += 0.3
+    state.thresholds = tuple(theta)
+    assert state.fit is before  # no refit
+    # reference: loglik of the core at the same thresholds
+    assert state.loglik == pytest.approx(before.loglik_at(thresholds=theta), abs=1e-12)
+    assert state.lr_distance == pytest.approx(2 * (before.loglik - state.loglik))
+    assert state.lr_distance > 0 and state.changed == ("thresholds",)
+
+
+def test_link_change_refits(state, data):
+    n0 = state.updates
+    state.link = "cloglog"
+    ref = ow.fit(FORMULA, data, link="cloglog")  # reference: direct fit with that link
+    np.testing.assert_allclose(state.fit.params, ref.params, atol=1e-8)
+    assert state.updates == n0 + 1 and "fit" in state.changed
+
+
+@pytest.mark.parametrize("bad", [(0.0, 0.0, 1.0), (2.0, 1.0, 3.0), (0.0, np.nan, 1.0), (0.0, 1.0)])
+def test_crossing_or_bad_thresholds_refused(state, bad):
+    old = state.thresholds
+    with pytest.raises(traitlets.TraitError):
+        state.thresholds = bad
+    assert state.thresholds == old
+
+
+def test_set_threshold_clamps_between_neighbours(state):
+    theta = state.theta
+    value = state.set_threshold(1, theta[2] + 5)
+    assert theta[1] < value < theta[2] and np.all(np.diff(state.theta) > 0)
+
+
+def test_batch_processes_once(state):
+    n0 = state.updates
+    with state.batch():
+        state.set_threshold(0, state.theta[0] - 0.1)
+        state.scenario = {"age": 30.0}
+        state.focus = "dose"
+    assert state.updates == n0 + 1
+    assert set(state.changed) == {"thresholds", "scenario", "focus"}
+
+
+def test_batch_link_and_drop_refit_once(state, data, monkeypatch):
+    calls = []
+    real = ow.state.core_fit
+    monkeypatch.setattr(ow.state, "core_fit", lambda *a, **k: calls.append(1) or real(*a, **k))
+    with state.batch():
+        state.link = "probit"
+        state.dropped = ("dose",)
+    assert len(calls) == 1 and state.fit.coef_names == ow.fit("rating ~ age + C(group)", data).coef_names
+
+
+def test_refused_refit_keeps_the_last_good_fit(state):
+    good = state.fit
+    state.formula = "rating ~ nonexistent"
+    assert state.fit is good and state.formula == FORMULA and "refit refused" in state.error
+
+
+def test_scenario_defaults_and_validation(state, data):
+    assert state.scenario["age"] == pytest.approx(np.median(data.age))  # reference: numpy median
+    assert state.scenario["group"] == data.group.value_counts().index[0]
+    with pytest.raises(traitlets.TraitError):
+        state.scenario = {"age": "old"}
+    with pytest.raises(traitlets.TraitError):
+        state.scenario = {"group": "never seen"}
+    with pytest.raises(traitlets.TraitError):
+        state.focus = "not a predictor"
+
+
+def test_reset_restores_the_fitted_state(state):
+    state.set_threshold(0, state.theta[0] - 1)
+    state.scenario = {"age": 21.0}
+    state.selection = (1, 2, 3)
+    state.reset()
+    assert not state.edited and state.lr_distance == 0 and state.selection == ()
+    assert state.scenario == FitState(data=state.data, formula=FORMULA).scenario
+
+
+def test_save_load_round_trips_exactly(state, data, tmp_path):
+    with state.batch():
+        state.link = "loglog"
+        state.set_threshold(2, state.theta[2] + 0.123456789)
+        state.scenario = {"age": 44.4, "group": "plain"}
+        state.baseline = {"dose": -1.5}
+        state.focus = "age"
+        state.residual_seed, state.selection = 7, (5, 9)
+    path = tmp_path / "s.json"
+    state.save(path)
+    back = FitState.load(path, data)
+    assert back.to_dict() == state.to_dict()
+    assert back.thresholds == state.thresholds  # exact float round trip
+    assert back.loglik == state.loglik
+
+
+HOSTILE_DOCS = {
+    "code in formula": {"formula": "rating ~ __import__('os').system('touch /tmp/owned')"},
+    "unknown name in formula": {"formula": "rating ~ eval(age)"},
+    "attribute access": {"formula": "rating ~ np.random.seed(age)"},
+    "bad link": {"link": "../../etc"},
+    "extra key": {"payload": "x"},
+    "wrong type": {"thresholds": "0,1,2"},
+    "bool as int": {"residual_seed": True},
+    "non-finite threshold": {"thresholds": [0, 1e400, 2]},
+    "crossing thresholds": {"thresholds": [2.0, 1.0, 3.0]},
+    "selection out of range": {"selection": [10**9]},
+    "unknown weights column": {"weights": "w"},
+}
+
+
+@pytest.mark.parametrize("name", sorted(HOSTILE_DOCS))
+def test_hostile_files_give_a_clear_error(state, data, tmp_path, name):
+    doc = state.to_dict() | HOSTILE_DOCS[name]
+    path = tmp_path / "bad.json"
+    path.write_text(json.dumps(doc).replace("Infinity", "1e400"))
+    with pytest.raises(StateFileError):
+        FitState.load(path, data)
+
+
+@pytest.mark.parametrize("text", ["", "[1, 2]", "{\"format\": \"other\"}", "{" * 100000, "NaN", "\xff\xfe"])
+def test_malformed_files_give_a_clear_error(data, tmp_path, text):
+    path = tmp_path / "bad.json"
+    path.write_text(text, encoding="latin-1")
+    with pytest.raises(StateFileError):
+        FitState.load(path, data)
+
+
+def test_oversized_file_refused(data, tmp_path):
+    path = tmp_path / "big.json"
+    path.write_text(" " * 2_000_001)
+    with pytest.raises(StateFileError, match="bytes"):
+        FitState.load(path, data)
+
+
+def test_random_edits_keep_the_state_consistent(state):
+    rng = np.random.default_rng(3)
+    for _ in range(300):
+        action = rng.integers(4)
+        if action == 0:
+            state.set_threshold(int(rng.integers(3)), float(rng.normal(1.5, 2)))
+        elif action == 1:
+            state.scenario = {"age": float(rng.uniform(20, 70)), "dose": float(rng.normal())}
+        elif action == 2:
+            state.focus = str(rng.choice(state.included))
+        else:
+            state.reset_thresholds()
+        assert np.all(np.diff(state.theta) > 0)
+        assert state.loglik == pytest.approx(state.fit.loglik_at(thresholds=state.theta), abs=1e-9)
