@@ -205,22 +205,29 @@ class CLogLog(Link):
     dist = stats.gumbel_l()
 
     def _cdf(self, t):
-        return -np.expm1(-np.exp(t))
+        with np.errstate(over="ignore"):
+            return -np.expm1(-np.exp(t))
 
     def _sf(self, t):
-        return np.exp(-np.exp(t))
+        with np.errstate(over="ignore"):
+            return np.exp(-np.exp(t))
 
     def _logcdf(self, t):
-        return _log1mexp(-np.exp(t))
+        # log(1 - exp(-e^t)) = t - e^t / 2 + O(e^{2t}) far in the lower tail.
+        with np.errstate(over="ignore"):
+            return np.where(t < -30, t - 0.5 * np.exp(np.minimum(t, 0)), _log1mexp(-np.exp(t)))
 
     def _logsf(self, t):
-        return -np.exp(t)
+        with np.errstate(over="ignore"):
+            return -np.exp(t)
 
     def _logpdf(self, t):
-        return t - np.exp(t)
+        with np.errstate(over="ignore"):
+            return t - np.exp(t)
 
     def _dlogpdf(self, t):
-        return 1.0 - np.exp(t)
+        with np.errstate(over="ignore"):
+            return 1.0 - np.exp(t)
 
     def _ppf(self, p):
         return np.log(-np.log1p(-p))
@@ -237,22 +244,29 @@ class LogLog(Link):
     dist = stats.gumbel_r()
 
     def _cdf(self, t):
-        return np.exp(-np.exp(-t))
+        with np.errstate(over="ignore"):
+            return np.exp(-np.exp(-t))
 
     def _sf(self, t):
-        return -np.expm1(-np.exp(-t))
+        with np.errstate(over="ignore"):
+            return -np.expm1(-np.exp(-t))
 
     def _logcdf(self, t):
-        return -np.exp(-t)
+        with np.errstate(over="ignore"):
+            return -np.exp(-t)
 
     def _logsf(self, t):
-        return _log1mexp(-np.exp(-t))
+        # log(1 - exp(-e^{-t})) = -t - e^{-t} / 2 + O(e^{-2t}) far in the upper tail.
+        with np.errstate(over="ignore"):
+            return np.where(t > 30, -t - 0.5 * np.exp(-np.maximum(t, 0)), _log1mexp(-np.exp(-t)))
 
     def _logpdf(self, t):
-        return -t - np.exp(-t)
+        with np.errstate(over="ignore"):
+            return -t - np.exp(-t)
 
     def _dlogpdf(self, t):
-        return np.exp(-t) - 1.0
+        with np.errstate(over="ignore"):
+            return np.exp(-t) - 1.0
 
     def _ppf(self, p):
         return -np.log(-np.log(p))
