@@ -94,7 +94,7 @@ def test_missing_values_are_dropped_with_counts(df):
     d = df.copy()
     d.loc[[0, 1, 2], "wait"] = np.nan
     d.loc[[2, 3], "route"] = None
-    with pytest.warns(ow.DataWarning, match=r"dropped 4 rows with missing values \(wait: 3, route: 2\)"):
+    with pytest.warns(ow.DataWarning, match=r"dropped 4 rows with missing values \(route: 2, wait: 3\)"):
         res = ow.fit("grade ~ wait + C(route)", d)
     assert res.n_rows == 196
     assert any("dropped 4 rows" in n for n in res.notes)
