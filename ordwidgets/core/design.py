@@ -149,29 +149,50 @@ def _weights_array(weights, data):
     return w
 
 
-def _drop_unusable(data, response, columns, w):
-    """Drop rows with missing (or infinite) values; warn with counts per column."""
+def unusable_rows(data, response, columns, w):
+    """Rows with missing (or infinite) values, with per-column tallies.
+
+    Returns
+    -------
+    keep : pandas.Series of bool
+        Rows that can be used.
+    tally : dict
+        ``{"missing": (rows, counts), "infinite": (rows, counts)}`` where ``counts`` is a
+        Series of cells per column; tallies of disjoint row sets add up.
+    """
     frame = data[[response] + columns]
     missing = frame.isna()
     if w is not None:
         missing = missing.assign(**{"(weights)": w.isna()})
     bad = missing.any(axis=1)
-    notes = []
-    if bad.any():
-        counts = missing.sum()
-        detail = ", ".join(f"{c}: {int(n)}" for c, n in counts.items() if n)
-        notes.append(f"dropped {int(bad.sum())} rows with missing values ({detail})")
+    tally = {"missing": (int(bad.sum()), missing.sum())}
     num = [c for c in columns if pd.api.types.is_numeric_dtype(frame[c].dtype)]
     if num:
         inf = frame[num].apply(lambda s: np.isinf(s.astype(float))) & ~missing[num]
-        if inf.to_numpy().any():
-            counts = inf.sum()
+        rows = inf.any(axis=1)
+        tally["infinite"] = (int(rows.sum()), inf.sum())
+        bad = bad | rows
+    return ~bad, tally
+
+
+def unusable_notes(tally):
+    """Plain-language notes (with counts per column) for a tally of :func:`unusable_rows`."""
+    notes = []
+    for kind in ("missing", "infinite"):
+        rows, counts = tally.get(kind, (0, None))
+        if rows:
             detail = ", ".join(f"{c}: {int(n)}" for c, n in counts.items() if n)
-            notes.append(f"dropped {int(inf.any(axis=1).sum())} rows with infinite values ({detail})")
-            bad = bad | inf.any(axis=1)
+            notes.append(f"dropped {rows} rows with {kind} values ({detail})")
+    return notes
+
+
+def _drop_unusable(data, response, columns, w):
+    """Drop rows with missing (or infinite) values; warn with counts per column."""
+    keep, tally = unusable_rows(data, response, columns, w)
+    notes = unusable_notes(tally)
     for n in notes:
         warnings.warn(n, DataWarning, stacklevel=4)
-    return ~bad, notes
+    return keep, notes
 
 
 def _design_matrix(rhs, data):
@@ -202,14 +223,18 @@ def check_collinear(X, columns, weights=None):
     w = np.ones(len(X)) if weights is None else weights
     mean = (w @ X) / w.sum()
     Xc = X - mean
-    sd = np.sqrt((w @ (Xc * Xc)) / w.sum())
+    check_collinear_moments(columns, mean, (Xc.T @ (Xc * w[:, None])) / w.sum())
+
+
+def check_collinear_moments(columns, mean, cov):
+    """:func:`check_collinear` from the weighted means and (population) covariance matrix."""
+    sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
     const = [c for c, s, m in zip(columns, sd, mean) if s <= 1e-12 * max(1.0, abs(m))]
     if const:
         raise CollinearityError(
             f"predictors constant in the rows used (collinear with the thresholds): {', '.join(const)}"
         )
-    Z = Xc / sd
-    vals, vecs = np.linalg.eigh((Z.T @ (Z * w[:, None])) / w.sum())
+    vals, vecs = np.linalg.eigh(cov / np.outer(sd, sd))
     small = vals < 1e-10 * max(vals.max(), 1.0)
     if small.any():
         v = vecs[:, np.argmax(small)]
@@ -243,18 +268,34 @@ def prepare(formula, data, *, weights=None, levels=None):
 
 
 def _drop_empty_levels(y, levels, w, response):
-    counts = np.bincount(y, weights=w, minlength=len(levels))
+    kept, lv, notes = empty_levels(np.bincount(y, weights=w, minlength=len(levels)), levels, response)
+    for n in notes:
+        warnings.warn(n, DataWarning, stacklevel=4)
+    if kept is None:
+        return y, levels, notes
+    remap = np.full(len(levels), -1)
+    remap[kept] = np.arange(len(kept))
+    return remap[y], lv, notes
+
+
+def empty_levels(counts, levels, response):
+    """Levels left after dropping those without observations (refusing fewer than two).
+
+    Returns
+    -------
+    kept : ndarray of int or None
+        Positions of the kept levels (``None`` when none is dropped).
+    levels : tuple
+    notes : list of str
+    """
     empty = [levels[i] for i in np.flatnonzero(counts <= 0)]
     if len(levels) - len(empty) < 2:
         raise OrdinalDataError(
             f"response {response!r} has fewer than two observed categories "
-            f"(levels {list(levels)!r}, counts {counts.tolist()})"
+            f"(levels {list(levels)!r}, counts {np.asarray(counts).tolist()})"
         )
     if not empty:
-        return y, levels, []
-    note = f"levels of {response!r} with no observations were dropped: {', '.join(map(str, empty))}"
-    warnings.warn(note, DataWarning, stacklevel=4)
+        return None, tuple(levels), []
     kept = np.flatnonzero(counts > 0)
-    remap = np.full(len(levels), -1)
-    remap[kept] = np.arange(len(kept))
-    return remap[y], tuple(levels[i] for i in kept), [note]
+    note = f"levels of {response!r} with no observations were dropped: {', '.join(map(str, empty))}"
+    return kept, tuple(levels[i] for i in kept), [note]
