@@ -30,8 +30,10 @@ lab: $(STAMP)
 bench: $(STAMP)
 	$(PY) bench/fit_speed.py
 
+# API reference from the numpydoc docstrings (offline); APIDIR may point elsewhere (tests do).
+APIDIR ?= docs/api
 docs: $(STAMP)
-	$(PY) -m pdoc ordwidgets -o docs/api
+	$(PY) -m pdoc -d numpy ordwidgets ordwidgets.demo -o $(APIDIR)
 
 clean:
 	rm -rf $(VENV) .pytest_cache .hypothesis

@@ -1,0 +1,146 @@
+"""Helpers for the notebook and real-browser tests (imported by their conftest and tests).
+
+Kernels must run this virtual environment's Python: the ``python3`` kernel spec calls
+``python`` from ``PATH``, so every kernel is started with this interpreter's directory first
+on ``PATH``.  Browser tests drive the system Chromium with Playwright; they skip when no
+Chromium is installed, unless ``OW_REQUIRE_BROWSER=1`` (set in CI), where they fail.
+"""
+from __future__ import annotations
+
+import os
+import shutil
+import signal
+import socket
+import subprocess
+import sys
+import time
+import urllib.error
+import urllib.request
+from contextlib import contextmanager
+from pathlib import Path
+
+import pytest
+
+REPO = Path(__file__).resolve().parents[2]
+NOTEBOOK_DIR = REPO / "example_notebooks"
+SCREENSHOT_DIR = REPO / "docs" / "img"
+CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking",
+                 "--disable-component-update", "--disable-sync"]
+SERVER_START_SECONDS = 60
+RENDER_MS = 180_000
+
+
+def kernel_env() -> dict:
+    """Environment whose ``python`` is this interpreter, so ``python3`` kernels use the venv."""
+    env = dict(os.environ)
+    env["PATH"] = os.pathsep.join([str(Path(sys.executable).parent), env.get("PATH", "")])
+    env.setdefault("MPLBACKEND", "Agg")
+    return env
+
+
+# ---- browser -------------------------------------------------------------------------------
+def browser_required() -> bool:
+    return os.environ.get("OW_REQUIRE_BROWSER", "") == "1"
+
+
+def unavailable(reason):
+    """Skip on a user's machine; fail where the browser tests are required (CI)."""
+    if browser_required():
+        pytest.fail(f"browser tests are required (OW_REQUIRE_BROWSER=1) but cannot run: {reason}")
+    pytest.skip(f"browser tests skipped: {reason} (install Debian's chromium to run them)")
+
+
+def free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def _wait_http(url, proc, seconds):
+    deadline = time.monotonic() + seconds
+    while time.monotonic() < deadline:
+        if proc.poll() is not None:
+            raise RuntimeError(f"voila exited early with code {proc.returncode}")
+        try:
+            with urllib.request.urlopen(url, timeout=2):
+                return
+        except (urllib.error.URLError, ConnectionError, OSError):
+            time.sleep(0.25)
+    raise TimeoutError(f"voila did not answer at {url} within {seconds} s")
+
+
+def _stop(proc):
+    """Terminate the server and its kernels (own process group), then make sure it is gone."""
+    if proc.poll() is None:
+        os.killpg(proc.pid, signal.SIGTERM)
+        try:
+            proc.wait(timeout=15)
+        except subprocess.TimeoutExpired:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait(timeout=5)
+
+
+@contextmanager
+def voila_server(target, log_path):
+    """Serve ``target`` (a notebook or a folder) with Voila on a free localhost port.
+
+    Yields the base URL.  Flags as in the project's notes: no browser, fixed port,
+    ``port_retries=0`` so Voila never moves to another port silently.
+    """
+    port = free_port()
+    cmd = [sys.executable, "-m", "voila", str(target), "--no-browser", f"--port={port}",
+           "--Voila.ip=127.0.0.1", "--Voila.port_retries=0", "--VoilaExecutor.timeout=240"]
+    with open(log_path, "wb") as log:
+        proc = subprocess.Popen(cmd, cwd=Path(target).parent if Path(target).is_file() else target,
+                                env=kernel_env(), stdout=log, stderr=subprocess.STDOUT,
+                                start_new_session=True)
+    try:
+        base = f"http://127.0.0.1:{port}"
+        _wait_http(base + "/", proc, SERVER_START_SECONDS)
+        yield base
+    finally:
+        _stop(proc)
+
+
+class PageWatch:
+    """A page plus the errors it reported (uncaught exceptions and console errors)."""
+
+    def __init__(self, page):
+        self.page = page
+        self.page_errors = []
+        self.console_errors = []
+        page.on("pageerror", lambda exc: self.page_errors.append(str(exc)))
+        page.on("console", self._console)
+
+    def _console(self, msg):
+        if msg.type == "error" and "net::ERR_FAILED" not in msg.text and "Failed to load resource" not in msg.text:
+            self.console_errors.append(msg.text)
+
+
+def local_only(route):
+    host = route.request.url.split("/")[2] if "//" in route.request.url else ""
+    if host.split(":")[0] in {"127.0.0.1", "localhost"} or route.request.url.startswith("data:"):
+        route.continue_()
+    else:
+        route.abort()
+
+
+
+
+# ---- nbclient ------------------------------------------------------------------------------
+def execute(path, cwd, timeout=300):
+    """Run a notebook top to bottom in a fresh ``python3`` kernel started in ``cwd``."""
+    import nbformat
+    from nbclient import NotebookClient
+
+    nb = nbformat.read(path, as_version=4)
+    NotebookClient(nb, timeout=timeout, kernel_name="python3",
+                   resources={"metadata": {"path": str(cwd)}}).execute()
+    return nb
+
+
+def stderr_outputs(nb):
+    """``(cell index, text)`` of every stderr stream or error output of an executed notebook."""
+    return [(i, out.get("text", out.get("evalue", ""))) for i, cell in enumerate(nb.cells)
+            if cell.cell_type == "code" for out in cell.get("outputs", [])
+            if out.get("name") == "stderr" or out.get("output_type") == "error"]
