@@ -9,7 +9,8 @@ Every panel observes a single counter, :attr:`FitState.updates`, and reads
 ``"focus"``       the predictor on the explorer's x-axis changed;
 ``"residuals"``   residual draws or seed changed;
 ``"selection"``   the brushed rows changed;
-``"link_table"``  the loglik / AIC / BIC comparison of the links arrived.
+``"link_table"``  the loglik / AIC / BIC comparison of the links arrived;
+``"error"``       a spec change was refused (see :attr:`FitState.error`); nothing else changed.
 
 One coordinator (:meth:`FitState._flush`) turns raw trait changes into one processed update:
 it refits only when the spec changed, recomputes the log-likelihood cheaply on threshold
@@ -31,7 +32,7 @@ from . import _spec
 
 __all__ = ["FitState", "CHANGE_KINDS"]
 
-CHANGE_KINDS = ("fit", "thresholds", "scenario", "focus", "residuals", "selection", "link_table")
+CHANGE_KINDS = ("fit", "thresholds", "scenario", "focus", "residuals", "selection", "link_table", "error")
 _KIND_OF = {
     "data": "spec", "formula": "spec", "link": "spec", "options": "spec", "dropped": "spec",
     "nonparallel": "spec", "scale_by": "spec", "thresholds": "thresholds", "scenario": "scenario",
@@ -76,7 +77,7 @@ class FitState(tl.HasTraits):
     def __init__(self, *, executor=None, **kwargs):
         self.executor = executor
         self._depth, self._pending, self._lock = 0, set(), threading.RLock()
-        self._good = None
+        self._good, self._busy_labels = None, []
         preset = kwargs.pop("fit", None)
         with self._quiet():
             super().__init__(**kwargs)
@@ -250,18 +251,17 @@ class FitState(tl.HasTraits):
             self._depth -= 1
 
     def _finish(self, kinds):
-        self.changed = tuple(k for k in CHANGE_KINDS if k in kinds)
-        self.updates += 1
+        with self._quiet():  # changes made by observers wait for the next update
+            self.changed = tuple(k for k in CHANGE_KINDS if k in kinds)
+            self.updates += 1
+        self._flush()
 
     def _refit(self):
-        self.busy = "refitting"
         try:
-            res = self._run_fit()
+            res = self.run_inline("refitting", self._run_fit)
         except (OrdinalDataError, ValueError, np.linalg.LinAlgError) as exc:
             self._restore_good(f"refit refused: {exc}")
-            return set()
-        finally:
-            self.busy = ""
+            return {"error"}
         self._install(res)
         return {"fit", "thresholds", "scenario", "focus"}
 
@@ -297,22 +297,38 @@ class FitState(tl.HasTraits):
     def run_long(self, label, work, done):
         """Run ``work()`` then ``done(result)``: inline without an executor, else in it.
 
-        ``busy`` holds ``label`` meanwhile.  Results of work started for an older fit are
+        An exception raised by ``work`` is passed to ``done`` as the result.  ``busy`` holds
+        ``label`` meanwhile.  Results of work started for an older fit are
         dropped (``done`` is not called).
         """
         fit_then = self.fit
-        self.busy = label
+        self._set_busy(label, True)
 
         def finish(result):
             with self._lock:
-                self.busy = ""
+                self._set_busy(label, False)
                 if self.fit is fit_then:
                     done(result)
 
         if self.executor is None:
-            finish(work())
+            finish(_result_or_error(work))
             return
-        self.executor.submit(work).add_done_callback(lambda fut: finish(_result_or_error(fut)))
+        self.executor.submit(_result_or_error, work).add_done_callback(lambda fut: finish(fut.result()))
+
+    def run_inline(self, label, work):
+        """Run ``work()`` now with ``busy`` showing ``label`` (the frontend sees it at once)."""
+        self._set_busy(label, True)
+        try:
+            return work()
+        finally:
+            self._set_busy(label, False)
+
+    def _set_busy(self, label, on):
+        if on:
+            self._busy_labels.append(label)
+        else:
+            self._busy_labels.remove(label)
+        self.busy = ", ".join(self._busy_labels)
 
     def request_link_table(self):
         """Compute the loglik / AIC / BIC of every link for the current spec (once per spec)."""
@@ -362,8 +378,8 @@ class FitState(tl.HasTraits):
             self.executor.shutdown(wait=False, cancel_futures=True)
 
 
-def _result_or_error(fut):
+def _result_or_error(work):
     try:
-        return fut.result()
-    except Exception as exc:  # shown in the link table as an error row
+        return work()
+    except Exception as exc:  # noqa: BLE001 - handed to ``done``, which shows it
         return exc

@@ -1,6 +1,7 @@
 """Simulated data for the widget and state tests (known effects, hostile labels)."""
 import numpy as np
 import pandas as pd
+import pytest
 
 HOSTILE = ["<script>alert(1)</script>", "<b>bold</b>", "plain"]
 
@@ -19,3 +20,41 @@ def simulate(n=600, seed=0, hostile=True):
 
 
 FORMULA = "rating ~ age + dose + C(group)"
+
+
+def manual_eta(res, frame):
+    """``x'beta`` built by hand from the coefficient names (no formula machinery).
+
+    Handles plain numeric columns and treatment-coded ``C(var)[T.level]`` columns: an
+    outside reference for the linear predictor the widgets compute through the fit.
+    """
+    eta = np.zeros(len(frame))
+    for name, beta in res.coefficients.items():
+        if name.startswith("C(") and "[T." in name:
+            var, level = name[2:name.index(")")], name[name.index("[T.") + 3:-1]
+            eta += beta * (frame[var].astype(str).to_numpy() == level)
+        else:
+            eta += beta * frame[name].to_numpy(float)
+    return eta
+
+
+def scenario_rows(state, which="scenario", n=1):
+    """A plain frame repeating a scenario ``n`` times."""
+    values = getattr(state, which)
+    return pd.DataFrame({k: [v] * n for k, v in values.items()})
+
+
+def html_values(widget):
+    """Every HTML string of a widget tree (HTML widgets only)."""
+    import ipywidgets as w
+
+    out = [widget.value] if isinstance(widget, w.HTML) else []
+    for child in getattr(widget, "children", ()):
+        out += html_values(child)
+    return out
+
+
+@pytest.fixture(scope="module")
+def data():
+    """The simulated frame with hostile labels (shared by a module's tests)."""
+    return simulate()

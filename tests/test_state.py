@@ -8,12 +8,10 @@ import traitlets
 import ordwidgets as ow
 from ordwidgets.state import FitState
 from ordwidgets._statefile import StateFileError
-from ow_sim import FORMULA, simulate
-
-
-@pytest.fixture(scope="module")
-def data():
-    return simulate()
+try:
+    from tests.ow_sim import FORMULA, data, simulate
+except ImportError:  # tests/ is not a package
+    from ow_sim import FORMULA, data, simulate
 
 
 @pytest.fixture

@@ -1,0 +1,38 @@
+"""The linked panels of ordwidgets (ipywidgets + bqplot).
+
+Every panel observes and sets one :class:`~ordwidgets.state.FitState`, never another panel.
+
+CSS classes (``add_class``) are stable hooks for browser tests and styling:
+
+==========================  ==========================================================
+``ow-dashboard``            the whole dashboard
+``ow-status``               "updates: N", bumped after every processed state change
+``ow-busy``                 what long work is running (empty when idle)
+``ow-threshold-panel``      :class:`ThresholdPanel`
+``ow-threshold-slider``     each threshold slider
+``ow-density-figure``       the latent density figure
+``ow-loglik-readout``       log-likelihood at the shown thresholds and LR distance
+``ow-reset``                the reset button of the thresholds
+``ow-link-selector``        :class:`LinkSelector`
+``ow-link-dropdown``        the link dropdown
+``ow-link-table``           loglik / AIC / BIC of every link
+``ow-model-controls``       per predictor: in/out, non-parallel, scale effect, PO test
+``ow-explorer``             :class:`ProbabilityExplorer`
+``ow-explorer-figure``      the probability figure
+``ow-focus-dropdown``       the x-axis predictor dropdown
+``ow-whatif-table``         baseline vs scenario probabilities and expected score
+``ow-residual-panel``       :class:`ResidualPanel`
+``ow-residual-figure``      residuals against the fit or a predictor (brushable)
+``ow-qq-figure``            QQ plot against the link distribution
+``ow-selection-table``      the brushed rows
+``ow-save-toolbar``         PNG / SVG buttons under each figure
+==========================  ==========================================================
+"""
+from .dashboard import CAUTION, Dashboard, dashboard
+from .explorer import ProbabilityExplorer
+from .links import LinkSelector
+from .residuals import ResidualPanel
+from .threshold import ThresholdPanel
+
+__all__ = ["ThresholdPanel", "LinkSelector", "ProbabilityExplorer", "ResidualPanel", "Dashboard",
+           "dashboard", "CAUTION"]

@@ -1,0 +1,140 @@
+"""Pieces every panel shares: the panel base class, escaping, colours, figure toolbar.
+
+A panel observes exactly one trait of the state, :attr:`FitState.updates`, and dispatches
+on :attr:`FitState.changed` to its ``_update_*`` methods, each called at most once per
+processed change.  It never talks to another panel.  ``close()`` unobserves the state and
+closes every widget and mark the panel made.
+"""
+from __future__ import annotations
+
+import contextlib
+import html
+
+import bqplot as bq
+import ipywidgets as w
+import numpy as np
+
+__all__ = ["PanelBase", "esc", "category_colours", "make_figure", "figure_toolbar", "html_table",
+           "fmt", "rule_xy"]
+
+
+def esc(value) -> str:
+    """Text of ``value`` escaped for an HTML widget."""
+    return html.escape(str(value), quote=True)
+
+
+def fmt(value, digits=4) -> str:
+    """Short number text (``"-"`` for missing)."""
+    if value is None or (isinstance(value, float) and not np.isfinite(value)):
+        return "-"
+    if isinstance(value, (int, np.integer)):
+        return f"{value:,}"
+    return f"{value:.{digits}g}"
+
+
+_RAMP = np.array([[0x31, 0x5f, 0x9b], [0x8f, 0xc3, 0xb0], [0xf2, 0xd4, 0x7a], [0xc8, 0x4b, 0x31]], float)
+
+
+def category_colours(k) -> list:
+    """``k`` colours from low (blue) to high (red) categories."""
+    pos = np.linspace(0, len(_RAMP) - 1, max(k, 1))
+    lo = np.floor(pos).astype(int).clip(0, len(_RAMP) - 2)
+    rgb = _RAMP[lo] + (pos - lo)[:, None] * (_RAMP[lo + 1] - _RAMP[lo])
+    return ["#%02x%02x%02x" % tuple(int(round(c)) for c in row) for row in rgb][:k]
+
+
+def make_figure(marks, axes, css, title="", height="300px", **kwargs):
+    """A bqplot figure with an explicit layout and our CSS class."""
+    fig = bq.Figure(marks=marks, axes=axes, title=title, animation_duration=0,
+                    layout=w.Layout(width="100%", height=height),
+                    fig_margin={"top": 30, "bottom": 45, "left": 55, "right": 15}, **kwargs)
+    fig.add_class(css)
+    return fig
+
+
+def figure_toolbar(figure, name):
+    """Two small buttons saving ``figure`` as PNG or SVG (works once it has rendered)."""
+    png = w.Button(description="PNG", tooltip=f"save {name}.png", layout=w.Layout(width="56px"))
+    svg = w.Button(description="SVG", tooltip=f"save {name}.svg", layout=w.Layout(width="56px"))
+    png.on_click(lambda _: figure.save_png(f"{name}.png"))
+    svg.on_click(lambda _: figure.save_svg(f"{name}.svg"))
+    bar = w.HBox([png, svg])
+    bar.add_class("ow-save-toolbar")
+    return bar
+
+
+def html_table(columns, rows, css="") -> str:
+    """An HTML table; every header and cell is escaped."""
+    head = "".join(f"<th style='padding:1px 6px;text-align:right'>{esc(c)}</th>" for c in columns)
+    body = "".join(
+        "<tr>" + "".join(f"<td style='padding:1px 6px;text-align:right'>{esc(v)}</td>" for v in row) + "</tr>"
+        for row in rows)
+    return f"<table class='{esc(css)}' style='border-collapse:collapse;font-size:90%'><tr>{head}</tr>{body}</table>"
+
+
+def rule_xy(xs):
+    """x and y arrays of vertical rules at ``xs`` on a 0..1 y scale."""
+    xs = np.asarray(xs, float)
+    return np.column_stack([xs, xs]), np.tile([0.0, 1.0], (len(xs), 1))
+
+
+class PanelBase(w.VBox):
+    """Base of the panels: one observer on the state, dispatch on what changed.
+
+    Subclasses set ``_dispatch``: a mapping from change kind to the names of their
+    ``_update_*`` methods (called in the order first met, each once per update).
+    """
+
+    _dispatch: dict = {}
+
+    def __init__(self, state, css, **kwargs):
+        super().__init__(**kwargs)
+        self.state = state
+        self.add_class(css)
+        self._syncing = False
+        self._owned = []
+        state.observe(self._on_update, names="updates")
+
+    def _on_update(self, change=None):
+        names = []
+        for kind in self.state.changed:
+            names += [n for n in self._dispatch.get(kind, ()) if n not in names]
+        for name in names:
+            getattr(self, name)()
+
+    def redraw_all(self):
+        """Run every ``_update_*`` method once (used at construction)."""
+        names = []
+        for group in self._dispatch.values():
+            names += [n for n in group if n not in names]
+        for name in names:
+            getattr(self, name)()
+
+    @contextlib.contextmanager
+    def _guard(self):
+        """Mark changes made by the panel itself so its widget observers ignore them."""
+        self._syncing, old = True, self._syncing
+        try:
+            yield
+        finally:
+            self._syncing = old
+
+    def own(self, *widgets):
+        """Register widgets and marks for closing with the panel."""
+        self._owned.extend(widgets)
+        return widgets[0] if len(widgets) == 1 else widgets
+
+    def close(self):
+        """Unobserve the state and close everything the panel made."""
+        with contextlib.suppress(ValueError):
+            self.state.unobserve(self._on_update, names="updates")
+        for item in self._owned:
+            item.close()
+        self._owned = []
+        super().close()
+
+    @property
+    def observing(self) -> bool:
+        """Whether this panel still observes its state."""
+        return any(getattr(h, "__self__", None) is self
+                   for h in self.state._trait_notifiers.get("updates", {}).get("change", []))

@@ -1,0 +1,97 @@
+"""``dashboard``: the four panels around one state, with header, status and busy indicator."""
+from __future__ import annotations
+
+import contextlib
+from concurrent.futures import ThreadPoolExecutor
+
+import ipywidgets as w
+
+from ..core import SIGN_CONVENTION, FitResult
+from ..state import FitState
+from ._common import esc
+from .explorer import ProbabilityExplorer
+from .links import LinkSelector
+from .residuals import ResidualPanel
+from .threshold import ThresholdPanel
+
+__all__ = ["Dashboard", "dashboard", "CAUTION"]
+
+CAUTION = ("These are associations, not causes. Check the fit (residuals, proportional-odds tests) "
+           "before acting on a prediction, and defer to domain experts, local rules and licensed "
+           "practice wherever predictions could be acted on about people.")
+
+
+class Dashboard(w.VBox):
+    """All four panels on one :class:`FitState` (``ow-dashboard``).
+
+    The status widget (``ow-status``) shows ``updates: N`` and is refreshed by an observer
+    registered after the panels', so it changes once every panel has redrawn.
+    """
+
+    def __init__(self, state, **kwargs):
+        super().__init__(**kwargs)
+        self.state = state
+        self.add_class("ow-dashboard")
+        self.header, self.status, self.busy = w.HTML(), w.HTML(), w.HTML()
+        self.status.add_class("ow-status")
+        self.busy.add_class("ow-busy")
+        self.threshold_panel, self.link_selector = ThresholdPanel(state), LinkSelector(state)
+        self.explorer, self.residual_panel = ProbabilityExplorer(state), ResidualPanel(state)
+        self.panels = [self.threshold_panel, self.link_selector, self.explorer, self.residual_panel]
+        grid = w.GridBox(self.panels, layout=w.Layout(grid_template_columns="repeat(2, minmax(0, 1fr))",
+                                                       grid_gap="12px 18px"))
+        footer = w.HTML(f"<div style='font-size:85%;color:#555'>{esc(CAUTION)}</div>")
+        self.children = [self.header, w.HBox([self.status, self.busy]), grid, footer]
+        state.observe(self._update_header, names="updates")
+        state.observe(self._update_busy, names="busy")
+        self._update_header()
+        self._update_busy()
+
+    def _update_header(self, change=None):
+        st, res = self.state, self.state.fit
+        edited = " &middot; <i>thresholds edited</i>" if st.edited else ""
+        self.header.value = (
+            f"<div style='font-size:115%'><b>Cumulative link model</b> &middot; {esc(st.model_formula)} "
+            f"&middot; link <b>{esc(res.link.name)}</b> ({esc(res.link.latent)} latent error) &middot; "
+            f"n = {res.n_rows:,} rows{edited}</div>"
+            f"<div style='font-size:90%'>{esc(SIGN_CONVENTION)}</div>"
+            f"<div style='font-size:90%;color:#8a5a00'>{esc(CAUTION)}</div>")
+        self.status.value = f"<span style='color:#777;font-size:85%'>updates: {st.updates}</span>"
+
+    def _update_busy(self, change=None):
+        busy = self.state.busy
+        self.busy.value = f"<span style='color:#b35c00'>&#8987; {esc(busy)}&hellip;</span>" if busy else ""
+
+    def close(self):
+        """Close the panels and stop observing the state."""
+        for name, handler in (("updates", self._update_header), ("busy", self._update_busy)):
+            with contextlib.suppress(ValueError):
+                self.state.unobserve(handler, names=name)
+        for panel in self.panels:
+            panel.close()
+        super().close()
+
+
+def dashboard(state_or_fit, *, data=None, background=True):
+    """Compose the four panels on one state.
+
+    Parameters
+    ----------
+    state_or_fit : FitState or FitResult
+        An existing state, or a fit to wrap (see :meth:`FitState.from_fit`).
+    data : pandas.DataFrame, optional
+        The data of a fit that does not hold its own frame.
+    background : bool
+        For a new state: compute the link comparison and other long work in a background
+        thread (busy indicator shown meanwhile).  ``False`` runs everything inline.
+
+    Returns
+    -------
+    Dashboard
+    """
+    if isinstance(state_or_fit, FitResult):
+        executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ow-long") if background else None
+        state_or_fit = FitState.from_fit(state_or_fit, data=data, executor=executor)
+    if not isinstance(state_or_fit, FitState):
+        raise TypeError(f"dashboard needs a FitState or a FitResult, got {type(state_or_fit).__name__}")
+    return Dashboard(state_or_fit)

@@ -1,0 +1,236 @@
+"""``ProbabilityExplorer``: category probabilities across one predictor, and a what-if table."""
+from __future__ import annotations
+
+import inspect
+
+import bqplot as bq
+import ipywidgets as w
+import numpy as np
+import pandas as pd
+
+from .._spec import grid_values
+from ..core import SIGN_CONVENTION, category_probabilities
+from ._common import PanelBase, category_colours, esc, figure_toolbar, fmt, html_table, make_figure, rule_xy
+
+__all__ = ["ProbabilityExplorer", "expected_score", "interval_bands"]
+
+
+def expected_score(probs):
+    """Expected score with the levels scored ``1..J``: ``sum_k k * p_k`` per row."""
+    probs = np.atleast_2d(probs)
+    return probs @ np.arange(1, probs.shape[1] + 1)
+
+
+def interval_bands(res, frame, level=0.95):
+    """Lower and upper interval bounds of the category probabilities, or ``None``.
+
+    Uses ``res.predict(frame, kind="probabilities", level=level)`` when the fitting core
+    offers intervals; the bounds are only drawn at the fitted thresholds.
+    """
+    if "level" not in inspect.signature(res.predict).parameters:
+        return None
+    out = res.predict(frame, kind="probabilities", level=level)
+    lower, upper = getattr(out, "lower", None), getattr(out, "upper", None)
+    if lower is None or upper is None:
+        return None
+    return np.asarray(lower, float), np.asarray(upper, float)
+
+
+class ProbabilityExplorer(PanelBase):
+    """Probabilities of every category across the focus predictor's observed range.
+
+    Other predictors are held at the scenario values, editable with sliders (numbers) or
+    dropdowns (levels).  A stacked band chart or a lines view (with interval bands when the
+    core provides them at the fitted thresholds); a marker at the scenario value; a what-if
+    table of baseline against scenario (``ow-whatif-table``).
+    """
+
+    _dispatch = {
+        "fit": ("_update_focus", "_update_editors", "_update_curves", "_update_whatif"),
+        "thresholds": ("_update_curves", "_update_whatif"),
+        "scenario": ("_update_editors", "_update_curves", "_update_whatif"),
+        "focus": ("_update_focus", "_update_curves"),
+    }
+
+    def __init__(self, state, **kwargs):
+        super().__init__(state, "ow-explorer", **kwargs)
+        self._cache, self.editors = (None, None), {}
+        self.focus_dropdown = self.own(w.Dropdown(description="x-axis"))
+        self.focus_dropdown.add_class("ow-focus-dropdown")
+        self.focus_dropdown.observe(self._focus_chosen, names="value")
+        self.view = self.own(w.ToggleButtons(options=["stacked", "lines"], value="stacked"))
+        self.view.observe(lambda _: self._update_curves(), names="value")
+        self.target = self.own(w.ToggleButtons(options=["scenario", "baseline"], value="scenario",
+                                               tooltips=["edit the what-if case", "edit the comparison case"]))
+        self.target.observe(lambda _: self._update_editors(), names="value")
+        self.copy_button = self.own(w.Button(description="baseline = scenario"))
+        self.copy_button.on_click(lambda _: setattr(self.state, "baseline", dict(self.state.scenario)))
+        self.editor_box, self.whatif, self.note = self.own(w.VBox(), w.HTML(), w.HTML())
+        self.whatif.add_class("ow-whatif-table")
+        self._build_figure()
+        self.children = [w.HTML("<b>Category probabilities</b>"), w.HBox([self.focus_dropdown, self.view]),
+                         self.figure, figure_toolbar(self.figure, "probabilities"), self.note,
+                         w.HBox([self.target, self.copy_button]), self.editor_box, self.whatif]
+        self.redraw_all()
+
+    def _build_figure(self):
+        self.xs, ys = bq.LinearScale(), bq.LinearScale(min=0.0, max=1.0)
+        sc = {"x": self.xs, "y": ys}
+        self.bands = bq.Lines(x=[0.0, 1.0], y=[[0.0, 0.0]], scales=sc, fill="between", stroke_width=0.5)
+        self.ci = bq.Lines(x=[0.0, 1.0], y=[[0.0, 0.0]], scales=sc, fill="between", stroke_width=0,
+                           visible=False)
+        self.lines = bq.Lines(x=[0.0, 1.0], y=[[0.0, 0.0]], scales=sc, stroke_width=2, visible=False,
+                              display_legend=False)
+        self.marker = bq.Lines(x=[[0.0, 0.0]], y=[[0.0, 1.0]], scales=sc, colors=["#111111"],
+                               line_style="dashed", stroke_width=2)
+        self.x_axis = bq.Axis(scale=self.xs, label="")
+        axes = [self.x_axis, bq.Axis(scale=ys, side="left", label="probability", tick_format=".0%")]
+        self.figure = self.own(make_figure([self.bands, self.ci, self.lines, self.marker], axes,
+                                           "ow-explorer-figure"))
+        self.own(self.bands, self.ci, self.lines, self.marker, self.xs, ys, self.x_axis)
+
+    # ---- focus ------------------------------------------------------------------------------------
+    def _focus_chosen(self, change):
+        if not self._syncing and change["new"]:
+            self.state.focus = change["new"]
+
+    def _update_focus(self):
+        with self._guard():
+            self.focus_dropdown.options = self.state.included
+            self.focus_dropdown.value = self.state.focus or None
+
+    def grid(self):
+        """x positions, the focus values behind them, and whether the focus is categorical."""
+        st = self.state
+        categorical = st.is_categorical(st.focus)
+        values = grid_values(st.frame[st.focus], categorical)
+        positions = np.arange(len(values), dtype=float) if categorical else np.asarray(values, float)
+        return positions, values, categorical
+
+    def grid_eta(self):
+        """Linear predictor along the grid (cached until the fit, scenario or focus change)."""
+        st = self.state
+        key = (st.fit, st.focus, tuple(sorted((k, str(v)) for k, v in st.scenario.items() if k != st.focus)))
+        if self._cache[0] != key:
+            positions, values, categorical = self.grid()
+            frame = st.scenario_frame(focus_values=values)
+            self._cache = (key, (positions, values, categorical, st.eta_of(frame), frame))
+        return self._cache[1]
+
+    # ---- curves ---------------------------------------------------------------------------------------
+    def _update_curves(self):
+        st = self.state
+        if not st.focus:
+            self.note.value = "<i>no predictor in the model: nothing to explore</i>"
+            return
+        positions, values, categorical, eta, frame = self.grid_eta()
+        probs = category_probabilities(st.fit.link, st.theta, eta)
+        colours = category_colours(probs.shape[1])
+        stacked = self.view.value == "stacked"
+        bands = None if stacked else self._bands(frame)
+        with self.bands.hold_sync(), self.lines.hold_sync(), self.ci.hold_sync(), self.marker.hold_sync():
+            self._draw_bands(positions, probs, colours, stacked)
+            self._draw_lines(positions, probs, colours, stacked)
+            self._draw_ci(positions, bands, colours)
+            self._draw_marker(positions, values, categorical)
+            self._draw_axis(positions, values, categorical)
+
+    def _draw_bands(self, x, probs, colours, visible):
+        cum = np.vstack([np.zeros(len(x)), np.cumsum(probs, axis=1).T]).clip(0, 1)
+        self.bands.x, self.bands.y = x, cum
+        self.bands.fill_colors, self.bands.colors = colours + [None], colours + ["#444444"]
+        self.bands.visible = visible
+
+    def _draw_lines(self, x, probs, colours, stacked):
+        self.lines.x, self.lines.y, self.lines.colors = x, probs.T, colours
+        self.lines.labels = [str(v) for v in self.state.fit.levels]
+        self.lines.visible = not stacked
+
+    def _draw_ci(self, x, bands, colours):
+        self.ci.visible = bands is not None
+        if bands is None:
+            return
+        lower, upper = bands
+        self.ci.x, self.ci.y = x, np.vstack([np.vstack([lo, hi]) for lo, hi in zip(lower.T, upper.T)])
+        self.ci.fill_colors = [c for col in colours for c in (col, None)]
+        self.ci.fill_opacities = [0.25] * (2 * len(colours))
+
+    def _bands(self, frame):
+        if self.state.edited:
+            self.note.value = "<i>interval bands are drawn at the fitted thresholds only (thresholds edited)</i>"
+            return None
+        try:
+            bands = interval_bands(self.state.fit, frame)
+        except Exception as exc:  # noqa: BLE001 - shown as a note, never breaks the panel
+            self.note.value = f"<i>intervals failed: {esc(exc)}</i>"
+            return None
+        self.note.value = "" if bands is not None else "<i>interval bands not available in this version</i>"
+        return bands
+
+    def _draw_marker(self, positions, values, categorical):
+        value = self.state.scenario.get(self.state.focus)
+        x = positions[values.index(value)] if categorical and value in values else value
+        self.marker.x, self.marker.y = rule_xy([float(x) if not categorical or value in values else np.nan])
+
+    def _draw_axis(self, positions, values, categorical):
+        self.x_axis.label = f"{self.state.focus} (others at the scenario values)"
+        self.x_axis.tick_values = positions if categorical else None
+        self.x_axis.tick_labels = {float(p): str(v) for p, v in zip(positions, values)} if categorical else None
+        pad = 0.5 if categorical else 0.0
+        self.xs.min, self.xs.max = float(positions.min() - pad), float(positions.max() + pad)
+
+    # ---- scenario editors -------------------------------------------------------------------------------
+    def _editing(self):
+        return self.state.scenario if self.target.value == "scenario" else self.state.baseline
+
+    def _update_editors(self):
+        if list(self.editors) != self.state.included:
+            self._make_editors()
+        with self._guard():
+            for name, editor in self.editors.items():
+                editor.value = self._editing()[name]
+
+    def _make_editors(self):
+        for editor in self.editors.values():
+            editor.close()
+        self.editors = {name: self._editor(name) for name in self.state.included}
+        self.editor_box.children = list(self.editors.values())
+
+    def _editor(self, name):
+        st = self.state
+        column = st.frame[name]
+        style = {"description_width": "110px"}
+        if st.is_categorical(name):
+            levels = grid_values(column, True)
+            editor = w.Dropdown(options=[(str(v), v) for v in levels], description=str(name), style=style)
+        else:
+            lo, hi = float(column.min()), float(column.max())
+            editor = w.FloatSlider(min=lo, max=hi, step=(hi - lo) / 200 or 1.0, description=str(name),
+                                   readout_format=".3g", style=style, layout=w.Layout(width="95%"))
+        editor.observe(lambda change, n=name: self._edited(n, change["new"]), names="value")
+        return editor
+
+    def _edited(self, name, value):
+        if self._syncing:
+            return
+        which = self.target.value
+        setattr(self.state, which, {**getattr(self.state, which), name: value})
+
+    # ---- what-if --------------------------------------------------------------------------------------
+    def whatif_probabilities(self):
+        """Category probabilities of the baseline and the scenario, shape (2, J)."""
+        st = self.state
+        frame = pd.concat([st.scenario_frame("baseline"), st.scenario_frame("scenario")], ignore_index=True)
+        return category_probabilities(st.fit.link, st.theta, st.eta_of(frame))
+
+    def _update_whatif(self):
+        probs = self.whatif_probabilities()
+        rows = [[lv, f"{b:.1%}", f"{s:.1%}", f"{s - b:+.1%}"] for lv, b, s in zip(self.state.fit.levels, *probs)]
+        score = expected_score(probs)
+        rows.append(["expected score (1..J)", fmt(score[0], 4), fmt(score[1], 4), f"{score[1] - score[0]:+.3f}"])
+        changed = [k for k in self.state.scenario if self.state.scenario[k] != self.state.baseline.get(k)]
+        what = ", ".join(f"{k} = {v}" for k, v in self.state.scenario.items() if k in changed) or "no difference"
+        self.whatif.value = (f"<b>What if</b> (scenario: {esc(what)})"
+                             + html_table(["level", "baseline", "scenario", "difference"], rows)
+                             + f"<div style='font-size:85%;color:#555'>{esc(SIGN_CONVENTION)} "
+                               "Associations, not causes.</div>")

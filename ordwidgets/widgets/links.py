@@ -1,0 +1,139 @@
+"""``LinkSelector``: the link, a comparison of all links, and the model controls."""
+from __future__ import annotations
+
+import inspect
+
+import ipywidgets as w
+import numpy as np
+
+from ..core import fit as core_fit, link_names
+from ._common import PanelBase, esc, fmt, html_table
+
+__all__ = ["LinkSelector", "po_test_rows"]
+
+_UNAVAILABLE = "<i>proportional-odds test not available in this version</i>"
+
+
+def po_test_rows(res) -> dict:
+    """``{name: "statistic / df / p"}`` text from ``res.proportional_odds_test()``, or ``{}``."""
+    test = getattr(res, "proportional_odds_test", None)
+    if test is None:
+        return {}
+    table = test()
+    return {str(name): f"chi2 {fmt(row['statistic'], 4)} on {fmt(row['df'], 3)} df, p = {fmt(row['p_value'], 3)}"
+            for name, row in table.iterrows()}
+
+
+class LinkSelector(PanelBase):
+    """Pick the link; compare loglik / AIC / BIC of every link; free or drop predictors.
+
+    The comparison (``ow-link-table``) is computed once per model spec, through the state's
+    long-work runner (a background executor in the dashboard, inline in tests).  The model
+    controls (``ow-model-controls``) hold, per predictor: in or out of the model, parallel or
+    non-parallel, with or without a scale effect, and the proportional-odds test beside it.
+    """
+
+    _dispatch = {
+        "fit": ("_update_dropdown", "_update_controls", "_request_tables"),
+        "error": ("_update_dropdown", "_update_controls"),
+        "link_table": ("_update_table",),
+    }
+
+    def __init__(self, state, **kwargs):
+        super().__init__(state, "ow-link-selector", **kwargs)
+        self.dropdown = self.own(w.Dropdown(options=list(link_names()), description="link"))
+        self.dropdown.add_class("ow-link-dropdown")
+        self.dropdown.observe(self._link_chosen, names="value")
+        self.table = self.own(w.HTML())
+        self.table.add_class("ow-link-table")
+        self.controls = self.own(w.VBox())
+        self.controls.add_class("ow-model-controls")
+        self.message = self.own(w.HTML())
+        self._rows, self._po = {}, {}
+        supported = inspect.signature(core_fit).parameters
+        self._can = {k: k in supported for k in ("nonparallel", "scale_by")}
+        self.children = [w.HTML("<b>Link and model</b>"), self.dropdown, self.table,
+                         w.HTML("<b>Predictors</b> (in model &middot; non-parallel &middot; scale effect "
+                                "&middot; proportional-odds test)"), self.controls, self.message]
+        self.redraw_all()
+
+    # ---- link -----------------------------------------------------------------------------------
+    def _link_chosen(self, change):
+        if not self._syncing:
+            self.state.link = change["new"]
+
+    def _update_dropdown(self):
+        with self._guard():
+            self.dropdown.value = self.state.link
+        self.message.value = f"<span style='color:#b3261e'>{esc(self.state.error)}</span>" if self.state.error else ""
+
+    def _request_tables(self):
+        self.state.request_link_table()
+        self._po = {}
+        if hasattr(self.state.fit, "proportional_odds_test"):
+            self.state.run_long("testing proportional odds", lambda res=self.state.fit: po_test_rows(res),
+                                self._set_po)
+        self._update_table()
+
+    def _set_po(self, rows):
+        self._po = rows if isinstance(rows, dict) else {"": f"test failed: {rows}"}
+        self._update_po()
+
+    def _update_table(self):
+        rows = self.state.link_table
+        if not rows:
+            self.table.value = "<i>comparing links...</i>"
+            return
+        cells = [[("\u25b6 " if r["link"] == self.state.link else "") + r["link"], fmt(r.get("loglik"), 8),
+                  fmt(r.get("aic"), 8), fmt(r.get("bic"), 8), r.get("error", "")[:80]] for r in rows]
+        self.table.value = html_table(["link", "loglik", "AIC", "BIC", "note"], cells)
+
+    # ---- model controls ------------------------------------------------------------------------------
+    def _update_controls(self):
+        names = self.state.predictors
+        if list(self._rows) != names:
+            self._make_rows(names)
+        with self._guard():
+            for name, (inc, nonpar, scale, _) in self._rows.items():
+                inc.value = name not in self.state.dropped
+                nonpar.value, scale.value = name in self.state.nonparallel, name in self.state.scale_by
+                nonpar.disabled = scale.disabled = not inc.value
+                nonpar.disabled |= not self._can["nonparallel"]
+                scale.disabled |= not self._can["scale_by"]
+        self._update_po()
+
+    def _make_rows(self, names):
+        for row in self.controls.children:
+            row.close()
+        self._rows = {}
+        for name in names:
+            boxes = [w.Checkbox(description=d, indent=False, layout=w.Layout(width="auto"))
+                     for d in ("in model", "non-parallel", "scale effect")]
+            for box in boxes:
+                box.observe(self._control_changed, names="value")
+            self._rows[name] = (*boxes, w.HTML())
+        self.controls.children = [w.HBox([w.Label(str(n), layout=w.Layout(width="110px")), *r])
+                                  for n, r in self._rows.items()]
+
+    def _control_changed(self, change):
+        if self._syncing:
+            return
+        pick = {k: tuple(n for n, r in self._rows.items() if r[i].value)
+                for i, k in enumerate(("included", "nonparallel", "scale_by"))}
+        with self.state.batch():
+            self.state.dropped = tuple(n for n in self._rows if n not in pick["included"])
+            self.state.nonparallel, self.state.scale_by = pick["nonparallel"], pick["scale_by"]
+
+    def _update_po(self):
+        available = hasattr(self.state.fit, "proportional_odds_test")
+        for name, (*_, text) in self._rows.items():
+            if not available:
+                text.value = _UNAVAILABLE
+            elif name in self.state.dropped:
+                text.value = "<i>out of the model</i>"
+            else:
+                text.value = esc(self._match_po(name)) if self._po else "<i>testing...</i>"
+
+    def _match_po(self, name):
+        hits = [v for k, v in self._po.items() if k == name or k.startswith((f"C({name})", f"{name}["))]
+        return "; ".join(hits) if hits else "-"

@@ -1,0 +1,142 @@
+"""``ThresholdPanel``: the latent distribution at the scenario, cut by editable thresholds."""
+from __future__ import annotations
+
+import bqplot as bq
+import ipywidgets as w
+import numpy as np
+
+from ..core import category_probabilities
+from ._common import PanelBase, category_colours, esc, figure_toolbar, fmt, make_figure, rule_xy
+
+__all__ = ["ThresholdPanel", "latent_range"]
+
+_GRID, _REGION_POINTS = 241, 40
+
+
+def latent_range(res):
+    """Fixed x range of the latent scale for one fit: thresholds and most linear predictors."""
+    theta = res.thresholds.to_numpy()
+    q = np.quantile(res.linear_predictor(), [0.01, 0.99]) if res.coef_names else np.zeros(2)
+    span = float(res.link.ppf(0.98) - res.link.median)
+    return float(min(theta.min(), q[0]) - span), float(max(theta.max(), q[1]) + span)
+
+
+class ThresholdPanel(PanelBase):
+    """Latent density ``f(t - eta)`` at the scenario's linear predictor with the thresholds.
+
+    One slider per threshold (``ow-threshold-slider``); the thresholds are vertical rules over
+    the density, each category's region shaded and labelled with its probability; the
+    log-likelihood at the shown thresholds and its likelihood-ratio distance from the fit;
+    a reset button (``ow-reset``).
+    """
+
+    _dispatch = {
+        "fit": ("_update_range", "_update_sliders", "_update_curve", "_update_readout"),
+        "thresholds": ("_update_sliders", "_update_curve", "_update_readout"),
+        "scenario": ("_update_curve",),
+    }
+
+    def __init__(self, state, **kwargs):
+        super().__init__(state, "ow-threshold-panel", **kwargs)
+        self.sliders = []
+        self._build_figure()
+        self.slider_box = self.own(w.VBox())
+        self.readout = self.own(w.HTML())
+        self.readout.add_class("ow-loglik-readout")
+        self.reset_button = self.own(w.Button(description="reset thresholds", icon="undo"))
+        self.reset_button.add_class("ow-reset")
+        self.reset_button.on_click(lambda _: self.state.reset_thresholds())
+        self.legend = self.own(w.HTML())
+        self.children = [w.HTML("<b>Thresholds on the latent scale</b>"), self.figure,
+                         figure_toolbar(self.figure, "latent"), self.legend, self.slider_box,
+                         w.HBox([self.reset_button, self.readout])]
+        self.redraw_all()
+
+    def _build_figure(self):
+        self.xs, ys, yr = bq.LinearScale(), bq.LinearScale(min=0.0), bq.LinearScale(min=0.0, max=1.0)
+        self.curve = bq.Lines(x=[0.0, 1.0], y=[0.0, 0.0], scales={"x": self.xs, "y": ys}, colors=["#333333"])
+        self.regions = bq.Lines(x=[[0.0, 1.0]], y=[[0.0, 0.0]], scales={"x": self.xs, "y": ys},
+                                fill="bottom", stroke_width=0)
+        self.rules = bq.Lines(x=[[0.0, 0.0]], y=[[0.0, 1.0]], scales={"x": self.xs, "y": yr},
+                              colors=["#111111"], line_style="dashed")
+        self.labels = bq.Label(x=[0.0], y=[0.0], text=[""], scales={"x": self.xs, "y": ys},
+                               align="middle", font_weight="bold", default_size=13)
+        self.ys = ys
+        axes = [bq.Axis(scale=self.xs, label="latent scale y* = x'beta + error"),
+                bq.Axis(scale=ys, side="left", label="density", tick_format=".2f")]
+        self.figure = self.own(make_figure([self.regions, self.curve, self.rules, self.labels], axes,
+                                           "ow-density-figure"))
+        self.own(self.curve, self.regions, self.rules, self.labels, self.xs, ys, yr)
+
+    # ---- updates ---------------------------------------------------------------------------------
+    def _update_range(self):
+        lo, hi = latent_range(self.state.fit)
+        self.xs.min, self.xs.max = lo, hi
+        self._grid = np.linspace(lo, hi, _GRID)
+        colours = category_colours(len(self.state.fit.levels))
+        self.regions.colors, self.regions.fill_colors = colours, colours
+        self.regions.fill_opacities = [0.5] * len(colours)
+        self.legend.value = " ".join(
+            f"<span style='background:{c};padding:0 6px;margin-right:4px;opacity:0.8'>{esc(lv)}</span>"
+            for c, lv in zip(colours, self.state.fit.levels))
+
+    def _update_sliders(self):
+        res = self.state.fit
+        if len(self.sliders) != res.n_thresholds:
+            self._make_sliders(res.n_thresholds)
+        lo, hi = self.xs.min, self.xs.max
+        with self._guard():
+            for slider, name, value in zip(self.sliders, res.threshold_names, self.state.thresholds):
+                slider.description = str(name)
+                slider.min, slider.max = min(lo, value), max(hi, value)
+                if slider.value != value:
+                    slider.value = value
+
+    def _make_sliders(self, m):
+        for s in self.sliders:
+            s.close()
+        self.sliders = []
+        for i in range(m):
+            s = w.FloatSlider(min=-1e6, max=1e6, step=0.001, readout_format=".3f", continuous_update=True,
+                              layout=w.Layout(width="95%"), style={"description_width": "120px"})
+            s.add_class("ow-threshold-slider")
+            s.observe(self._slider_moved(i), names="value")
+            self.sliders.append(s)
+        self.slider_box.children = self.sliders
+
+    def _slider_moved(self, i):
+        def moved(change):
+            if self._syncing:
+                return
+            value = self.state.set_threshold(i, change["new"])
+            if value != change["new"]:
+                with self._guard():
+                    self.sliders[i].value = value
+        return moved
+
+    def scenario_eta(self) -> float:
+        """Linear predictor of the current scenario."""
+        return float(self.state.eta_of(self.state.scenario_frame())[0])
+
+    def _update_curve(self):
+        link, theta, eta = self.state.fit.link, self.state.theta, self.scenario_eta()
+        density = link.pdf(self._grid - eta)
+        cuts = np.clip(np.concatenate([[self.xs.min], theta, [self.xs.max]]), self.xs.min, self.xs.max)
+        xs = np.array([np.linspace(a, b, _REGION_POINTS) for a, b in zip(cuts[:-1], cuts[1:])])
+        probs = category_probabilities(link, theta, [eta])[0]
+        peak = float(density.max())
+        rx, ry = rule_xy(theta)
+        with self.curve.hold_sync(), self.regions.hold_sync(), self.rules.hold_sync(), self.labels.hold_sync():
+            self.ys.max = 1.18 * peak
+            self.curve.x, self.curve.y = self._grid, density
+            self.regions.x, self.regions.y = xs, link.pdf(xs - eta)
+            self.rules.x, self.rules.y = rx, ry
+            self.labels.x, self.labels.y = xs.mean(axis=1), np.full(len(probs), 1.08 * peak)
+            self.labels.text = [f"{p:.1%}" for p in probs]
+
+    def _update_readout(self):
+        st = self.state
+        edited = " <i>(edited)</i>" if st.edited else ""
+        self.readout.value = (
+            f"log-likelihood at shown thresholds <b>{fmt(st.loglik, 8)}</b> &middot; fitted "
+            f"{fmt(st.fit.loglik, 8)} &middot; LR distance <b>{fmt(st.lr_distance, 4)}</b>{edited}")

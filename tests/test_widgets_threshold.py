@@ -1,0 +1,85 @@
+"""ThresholdPanel against references outside the widgets (scipy.stats, the core)."""
+import numpy as np
+import pytest
+
+import ordwidgets as ow
+
+try:
+    from tests.ow_sim import FORMULA, data, manual_eta, scenario_rows
+except ImportError:  # tests/ is not a package
+    from ow_sim import FORMULA, data, manual_eta, scenario_rows
+
+
+@pytest.fixture
+def panel(data):
+    st = ow.FitState(data=data, formula=FORMULA)
+    p = ow.ThresholdPanel(st)
+    yield p
+    p.close()
+
+
+def check_marks(p):
+    """Every mark of the panel equals a fresh computation outside the widgets."""
+    st = p.state
+    eta = manual_eta(st.fit, scenario_rows(st))[0]
+    # reference: scipy.stats density of the link's latent distribution, shifted by eta
+    np.testing.assert_allclose(p.curve.y, st.fit.link.dist.pdf(p.curve.x - eta), rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(p.regions.y, st.fit.link.dist.pdf(p.regions.x - eta), rtol=1e-9, atol=1e-12)
+    np.testing.assert_array_equal(p.rules.x[:, 0], st.theta)
+    # reference: the core's category probabilities at the shown thresholds
+    probs = ow.category_probabilities(st.fit.link, st.theta, [eta])[0]
+    assert list(p.labels.text) == [f"{q:.1%}" for q in probs]
+    assert [s.value for s in p.sliders] == list(st.thresholds)
+    assert f"{st.fit.loglik_at(thresholds=st.theta):.8g}" in p.readout.value
+
+
+def test_marks_follow_link_threshold_and_scenario(panel):
+    check_marks(panel)
+    st, before = panel.state, panel.curve.y.copy()
+    st.link = "cauchit"
+    check_marks(panel)
+    assert not np.allclose(panel.curve.y, before)
+    labels = list(panel.labels.text)
+    st.set_threshold(1, st.theta[1] + 0.4)
+    check_marks(panel)
+    assert list(panel.labels.text) != labels and "edited" in panel.readout.value
+    eta_before = panel.scenario_eta()
+    st.scenario = {"dose": 2.5}
+    check_marks(panel)
+    assert panel.scenario_eta() != eta_before
+
+
+def test_slider_edits_set_the_state_and_crossing_is_clamped(panel):
+    st = panel.state
+    panel.sliders[0].value = st.theta[0] - 0.25
+    assert st.thresholds[0] == panel.sliders[0].value
+    panel.sliders[1].value = st.theta[2] + 3.0  # would cross threshold 3
+    assert np.all(np.diff(st.theta) > 0) and panel.sliders[1].value == st.thresholds[1] < st.thresholds[2]
+    check_marks(panel)
+
+
+def test_reset_button_restores_fitted(panel):
+    st = panel.state
+    st.set_threshold(2, st.theta[2] + 1)
+    panel.reset_button.click()
+    assert not st.edited and st.lr_distance == 0
+    check_marks(panel)
+
+
+def test_one_redraw_per_batched_action(panel, monkeypatch):
+    calls = []
+    monkeypatch.setattr(panel, "_update_curve", lambda: calls.append(1))
+    with panel.state.batch():
+        panel.state.set_threshold(0, panel.state.theta[0] - 0.1)
+        panel.state.set_threshold(1, panel.state.theta[1] - 0.1)
+        panel.state.scenario = {"age": 33.0}
+    assert calls == [1]
+
+
+def test_close_unobserves_and_closes_marks(data):
+    st = ow.FitState(data=data, formula=FORMULA)
+    p = ow.ThresholdPanel(st)
+    assert p.observing
+    p.close()
+    assert not p.observing and p.curve.comm is None
+    st.set_threshold(0, st.theta[0] - 0.5)  # no error from a closed panel
