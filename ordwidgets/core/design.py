@@ -168,7 +168,8 @@ def unusable_rows(data, response, columns, w):
     tally = {"missing": (int(bad.sum()), missing.sum())}
     num = [c for c in columns if pd.api.types.is_numeric_dtype(frame[c].dtype)]
     if num:
-        inf = frame[num].apply(lambda s: np.isinf(s.astype(float))) & ~missing[num]
+        values = frame[num].to_numpy(dtype=float, na_value=np.nan)
+        inf = pd.DataFrame(np.isinf(values), index=frame.index, columns=num) & ~missing[num]
         rows = inf.any(axis=1)
         tally["infinite"] = (int(rows.sum()), inf.sum())
         bad = bad | rows
@@ -228,6 +229,8 @@ def check_collinear(X, columns, weights=None):
 
 def check_collinear_moments(columns, mean, cov):
     """:func:`check_collinear` from the weighted means and (population) covariance matrix."""
+    if not len(columns):
+        return
     sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
     const = [c for c, s, m in zip(columns, sd, mean) if s <= 1e-12 * max(1.0, abs(m))]
     if const:

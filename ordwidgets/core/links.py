@@ -90,6 +90,14 @@ class Link:
         out[q == 1] = -np.inf
         return out
 
+    def kernel(self, t):
+        """``(F, S, f, f'/f)`` at finite ``t`` in one pass (the fitter's hot path).
+
+        Subclasses share intermediate results (one ``exp`` for logit) where they can; the
+        default calls the private hooks.
+        """
+        return self._cdf(t), self._sf(t), np.exp(self._logpdf(t)), self._dlogpdf(t)
+
     # ---- moments (used by residual summaries) --------------------------------------------
     @property
     def mean(self) -> float:
@@ -153,6 +161,14 @@ class Logit(Link):
 
     def _ppf(self, p):
         return special.logit(p)
+
+    def kernel(self, t):
+        e = np.exp(-np.abs(t))
+        big = 1.0 / (1.0 + e)
+        small = e * big
+        upper = t >= 0
+        return (np.where(upper, big, small), np.where(upper, small, big), small * big,
+                np.copysign((1.0 - e) * big, -t))
 
     def _isf(self, q):
         return -special.logit(q)
@@ -232,6 +248,11 @@ class CLogLog(Link):
     def _ppf(self, p):
         return np.log(-np.log1p(-p))
 
+    def kernel(self, t):
+        with np.errstate(over="ignore"):
+            e = np.exp(t)
+            return -np.expm1(-e), np.exp(-e), np.exp(t - e), 1.0 - e
+
     def _isf(self, q):
         return np.log(-np.log(q))
 
@@ -270,6 +291,11 @@ class LogLog(Link):
 
     def _ppf(self, p):
         return -np.log(-np.log(p))
+
+    def kernel(self, t):
+        with np.errstate(over="ignore"):
+            e = np.exp(-t)
+            return np.exp(-e), -np.expm1(-e), np.exp(-t - e), e - 1.0
 
     def _isf(self, q):
         return -np.log(-np.log1p(-q))

@@ -32,6 +32,12 @@ DEFAULT_CHUNK = 65_536
 def row_terms(link, upper=None, lower=None, *, hessian=True):
     """Per-row log-probability and its derivatives with respect to ``u`` and ``l``.
 
+    With ``P = F(u) - F(l)``: ``d logP/du = f(u)/P``, ``d logP/dl = -f(l)/P``,
+    ``d2/du2 = f'(u)/P - (f(u)/P)^2``, ``d2/dl2 = -f'(l)/P - (f(l)/P)^2`` and
+    ``d2/du dl = f(u) f(l) / P^2``.  ``P`` is taken on the side of the median where the
+    difference is exact; rows whose probability is below ``1e-280`` (or whose ends are not
+    finite) are recomputed entirely in log space.
+
     Parameters
     ----------
     link : Link
@@ -48,26 +54,61 @@ def row_terms(link, upper=None, lower=None, *, hessian=True):
     """
     link = get_link(link)
     with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
-        if lower is None:
-            logp = link.logcdf(upper)
-        elif upper is None:
-            logp = link.logsf(lower)
-        else:
-            logp = interval_logprob(link, lower, upper)
-        out = {"logp": logp, "gu": None, "gl": None, "huu": None, "hll": None, "hul": None}
-        if upper is not None:
-            ru = np.exp(link.logpdf(upper) - logp)
-            out["gu"] = ru
-            if hessian:
-                out["huu"] = ru * link.dlogpdf(upper) - ru * ru
-        if lower is not None:
-            rl = np.exp(link.logpdf(lower) - logp)
-            out["gl"] = -rl
-            if hessian:
-                out["hll"] = -rl * link.dlogpdf(lower) - rl * rl
-                if upper is not None:
-                    out["hul"] = out["gu"] * rl
+        logp, ru, du, rl, dl = _ratios(link, upper, lower)
+        out = {"logp": logp, "gu": ru, "gl": None if rl is None else -rl,
+               "huu": None, "hll": None, "hul": None}
+        if hessian and ru is not None:
+            out["huu"] = ru * (du - ru)
+        if hessian and rl is not None:
+            out["hll"] = -rl * (dl + rl)
+            if ru is not None:
+                out["hul"] = ru * rl
     return out
+
+
+def _ratios(link, upper, lower):
+    """``log P``, ``f(u)/P``, ``f'/f(u)``, ``f(l)/P``, ``f'/f(l)`` (None for a missing end)."""
+    ru = du = rl = dl = None
+    if upper is not None:
+        Fu, Su, fu, du = link.kernel(upper)
+    if lower is not None:
+        Fl, Sl, fl, dl = link.kernel(lower)
+    if lower is None:
+        P = Fu
+    elif upper is None:
+        P = Sl
+    else:
+        P = np.where(lower >= link.median, Sl - Su, Fu - Fl)
+    if upper is not None:
+        ru = fu / P
+    if lower is not None:
+        rl = fl / P
+    logp = np.log(P)
+    bad = ~(P > 1e-280) | ~np.isfinite(logp)
+    if bad.any():
+        _log_space_rows(link, upper, lower, bad, logp, ru, rl)
+        if du is not None:
+            du[bad] = link.dlogpdf(upper[bad])
+        if dl is not None:
+            dl[bad] = link.dlogpdf(lower[bad])
+    return logp, ru, du, rl, dl
+
+
+def _log_space_rows(link, upper, lower, bad, logp, ru, rl):
+    """Recompute tiny-probability rows in log space (in place)."""
+    u = None if upper is None else upper[bad]
+    lo = None if lower is None else lower[bad]
+    if lo is None:
+        lp = link.logcdf(u)
+    elif u is None:
+        lp = link.logsf(lo)
+    else:
+        lp = interval_logprob(link, lo, u)
+    logp[bad] = lp
+    if ru is not None:
+        ru[bad] = np.exp(link.logpdf(u) - lp)
+    if rl is not None:
+        rl[bad] = np.exp(link.logpdf(lo) - lp)
 
 
 def sort_by_category(y, n_levels):
@@ -174,30 +215,50 @@ class SortedDesign:
 
 
 def _accumulate(g, H, t, k, m, Xs, w):
-    """Add one segment's gradient and Hessian terms (chain rule through u and l)."""
+    """Add one segment's gradient and Hessian terms (chain rule through u and l).
+
+    With ``u = theta_k - eta`` and ``l = theta_{k-1} - eta``: the threshold parts are
+    scalar sums, the threshold-effect block and the effect gradient come from one product
+    ``Xs' V`` with three weight columns, and the effect block is one weighted Gram product.
+    """
     zero = np.zeros(len(Xs))
-    gu = zero if t["gu"] is None else t["gu"]
-    gl = zero if t["gl"] is None else t["gl"]
+    get = lambda key: zero if t[key] is None else t[key]  # noqa: E731
+    gu, gl = get("gu"), get("gl")
     wt = 1.0 if w is None else w
     if k < m:
         g[k] += _wsum(w, gu)
     if k > 0:
         g[k - 1] += _wsum(w, gl)
-    g[m:] -= Xs.T @ (wt * (gu + gl))
     if H is None:
+        g[m:] -= Xs.T @ (wt * (gu + gl))
         return
-    huu = zero if t["huu"] is None else t["huu"]
-    hll = zero if t["hll"] is None else t["hll"]
-    hul = zero if t["hul"] is None else t["hul"]
+    huu, hll, hul = get("huu"), get("hll"), get("hul")
+    V = np.empty((len(Xs), 3))
+    V[:, 0] = wt * (gu + gl)
+    V[:, 1] = wt * (huu + hul)
+    V[:, 2] = wt * (hll + hul)
+    XV = Xs.T @ V
+    g[m:] -= XV[:, 0]
     if k < m:
         H[k, k] += _wsum(w, huu)
-        H[k, m:] -= Xs.T @ (wt * (huu + hul))
+        H[k, m:] -= XV[:, 1]
     if k > 0:
         H[k - 1, k - 1] += _wsum(w, hll)
-        H[k - 1, m:] -= Xs.T @ (wt * (hll + hul))
+        H[k - 1, m:] -= XV[:, 2]
     if 0 < k < m:
         c = _wsum(w, hul)
         H[k, k - 1] += c
         H[k - 1, k] += c
-    H[m:, m:] += Xs.T @ (Xs * (wt * (huu + hll + 2.0 * hul))[:, None])
+    H[m:, m:] += _weighted_gram(Xs, wt * (huu + hll + 2.0 * hul))
     H[m:, :m] = H[:m, m:].T
+
+
+def _weighted_gram(Xs, c):
+    """``Xs' diag(c) Xs``; as ``-(A'A)`` with ``A = Xs sqrt(-c)`` when ``c <= 0`` (log-concave
+    links), which lets BLAS use the symmetric rank-k update at half the cost."""
+    if Xs.shape[1] == 0:
+        return np.zeros((0, 0))
+    if np.all(c <= 0):
+        A = Xs * np.sqrt(-c)[:, None]
+        return -(A.T @ A)
+    return Xs.T @ (Xs * c[:, None])
