@@ -14,3 +14,8 @@ __all__ = [
     "UnknownLinkError", "CollinearityError", "DataWarning", "ConvergenceWarning",
     "SeparationWarning",
 ]
+
+from .exceptions import ComparisonError, CrossingError, CrossingWarning  # noqa: E402
+from .inference import compare, compare_links  # noqa: E402
+
+__all__ += ["compare", "compare_links", "CrossingError", "CrossingWarning", "ComparisonError"]

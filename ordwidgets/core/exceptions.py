@@ -12,6 +12,9 @@ __all__ = [
     "DataWarning",
     "ConvergenceWarning",
     "SeparationWarning",
+    "CrossingError",
+    "CrossingWarning",
+    "ComparisonError",
 ]
 
 
@@ -37,3 +40,15 @@ class ConvergenceWarning(UserWarning):
 
 class SeparationWarning(ConvergenceWarning):
     """Estimates run to infinity because a predictor separates the categories."""
+
+
+class CrossingError(OrdinalDataError):
+    """A non-parallel fit needs cumulative probabilities that cross for observed rows."""
+
+
+class CrossingWarning(UserWarning):
+    """Fitted cumulative probabilities cross somewhere inside the range of the data."""
+
+
+class ComparisonError(ValueError):
+    """Two fits cannot be compared (not nested, or fitted on different rows)."""

@@ -1,0 +1,285 @@
+"""Confidence intervals (Wald and profile likelihood) and likelihood-ratio comparisons.
+
+Profile intervals follow the usual construction (e.g. Venzon & Moolgavkar 1988, Appl.
+Statist. 37:87-94): the end points are where the signed root
+``r(t) = sign(t - est) * sqrt(2 (loglik_max - loglik_profile(t)))`` reaches ``-+ z``.  The
+profile log-likelihood maximises over all other parameters with the safeguarded Newton
+iteration, warm-started from the nearest point already solved and shifted along the
+regression of the other estimates on the profiled one.  An end that is not reached within
+``2**10`` Wald half-widths is reported as infinite, never invented.
+"""
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+from scipy import optimize, stats
+
+from .effects import _check_level
+from .exceptions import ComparisonError, ConvergenceWarning, CrossingError
+from .extended import ExtendedDesign, layout_of
+from .links import get_link, link_names
+from .optimize import newton_maximize
+
+__all__ = ["intervals", "wald_intervals", "profile_intervals", "compare", "compare_links"]
+
+_MAX_DOUBLINGS = 10
+
+
+def wald_intervals(res, level=0.95):
+    """``estimate -+ z * SE`` for every parameter (rows aligned with ``res.std_errors``)."""
+    _check_level(level)
+    q = stats.norm.isf((1 - level) / 2)
+    est, se = pd.Series(res.params, index=res.names), res.std_errors
+    return pd.DataFrame({"lower": est - q * se, "upper": est + q * se})
+
+
+class _Profile:
+    """Profile log-likelihood of one parameter, with a cache of solved points."""
+
+    def __init__(self, res, k, design):
+        self.res, self.k, self.design = res, k, design
+        self.free = np.flatnonzero(np.arange(res.n_params) != k)
+        cov = res.cov
+        self.slope = cov[self.free, k] / cov[k, k] if cov[k, k] > 0 else np.zeros(len(self.free))
+        self.solved = [(float(res.params[k]), np.array(res.params, float))]
+
+    def _full(self, t, rest):
+        x = np.empty(self.res.n_params)
+        x[self.k], x[self.free] = t, rest
+        return x
+
+    def _start(self, t):
+        t0, x0 = min(self.solved, key=lambda s: abs(s[0] - t))
+        shifted = x0[self.free] + self.slope * (t - t0)
+        for rest in (shifted, x0[self.free]):
+            if self.design.feasible(self._full(t, rest)):
+                return rest
+        return None
+
+    def loglik(self, t):
+        """Maximum log-likelihood with parameter ``k`` fixed at ``t`` (None if no start)."""
+        rest = self._start(t)
+        if rest is None:
+            return None
+        link = self.res.link
+
+        def evaluate(v, order):
+            ll, g, H = self.design.sums(link, self._full(t, v), order=order)
+            return ll, None if g is None else g[self.free], None if H is None else H[np.ix_(self.free, self.free)]
+
+        out = newton_maximize(evaluate, rest, feasible=lambda v: self.design.feasible(self._full(t, v)),
+                              max_iter=200, tol=1e-12)
+        self.solved.append((t, self._full(t, out.params)))
+        return out.loglik
+
+    def signed_root(self, t):
+        ll = self.loglik(t)
+        if ll is None:
+            raise RuntimeError(f"profile of {self.res.names[self.k]!r}: no feasible start at {t}")
+        return np.sign(t - self.res.params[self.k]) * np.sqrt(2.0 * max(self.res.loglik - ll, 0.0))
+
+
+def _profile_end(prof, sign, z, se):
+    """One end of the profile interval: bracket by doubling steps, then Brent's method."""
+    est = float(prof.res.params[prof.k])
+    t_prev, step = est, z * se
+    for _ in range(4 * _MAX_DOUBLINGS):
+        if abs(t_prev - est) > 2.0**_MAX_DOUBLINGS * z * se:
+            break
+        t = t_prev + sign * step
+        ll = prof.loglik(t)
+        if ll is None:
+            step /= 2
+            continue
+        if np.sqrt(2.0 * max(prof.res.loglik - ll, 0.0)) >= z:
+            lo, hi = sorted((t_prev, t))
+            return optimize.brentq(lambda s: prof.signed_root(s) - sign * z, lo, hi,
+                                   xtol=1e-10 * (1 + abs(t)), rtol=1e-12)
+        t_prev, step = t, 2 * step
+    return sign * np.inf
+
+
+def profile_intervals(res, level=0.95, *, which=None):
+    """Profile-likelihood intervals (rows aligned with ``res.std_errors``).
+
+    Parameters
+    ----------
+    which : list of str, optional
+        Parameter names to profile (default: all); the others are ``nan``.
+    """
+    _check_level(level)
+    tr = res._training()
+    design = ExtendedDesign(layout_of(res), tr.X, tr.y, tr.weights)
+    z = stats.norm.isf((1 - level) / 2)
+    se = res.std_errors.to_numpy()
+    out = np.full((res.n_params, 2), np.nan)
+    wanted = res.names if which is None else list(which)
+    for k, name in enumerate(res.names):
+        if name not in wanted or not np.isfinite(se[k]) or se[k] <= 0:
+            continue
+        prof = _Profile(res, k, design)
+        out[k] = [_profile_end(prof, -1.0, z, se[k]), _profile_end(prof, 1.0, z, se[k])]
+    return pd.DataFrame(out, index=res.names, columns=["lower", "upper"])
+
+
+def intervals(res, level=0.95, *, method="wald"):
+    """Confidence intervals for all parameters.
+
+    Parameters
+    ----------
+    level : float
+        Coverage, strictly between 0 and 1.
+    method : {"wald", "profile"}
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``lower``, ``upper``; rows aligned with ``res.std_errors``.  Profile ends
+        that the likelihood does not reach are ``-inf`` / ``inf``.
+    """
+    if method == "wald":
+        return wald_intervals(res, level)
+    if method == "profile":
+        return profile_intervals(res, level)
+    raise ValueError(f"method must be 'wald' or 'profile', got {method!r}")
+
+
+# ---- likelihood-ratio comparison ---------------------------------------------------------
+_RANK = {None: 0, "parallel": 1, "nonparallel": 2}
+
+
+def _structure(res):
+    """Design column -> (location kind, in scale) of a fit."""
+    layout = layout_of(res)
+    kinds = {}
+    for i, c in enumerate(layout.columns):
+        loc = "parallel" if i in layout.location else "nonparallel" if i in layout.nonparallel else None
+        kinds[c] = (loc, i in layout.scale)
+    return kinds
+
+
+def _describe(res):
+    extra = [f"{k}={v}" for k in ("nonparallel", "scale_by") if res.options.get(k) for v in [res.options[k]]]
+    return " ".join([res.formula, f"[{res.link.name}]"] + extra)
+
+
+def _check_same_rows(a, b):
+    if a.link.name != b.link.name or tuple(a.levels) != tuple(b.levels) or a.response != b.response:
+        raise ComparisonError("fits use different links, responses or levels: not nested")
+    if a.n_rows != b.n_rows or not np.isclose(a.n_obs, b.n_obs):
+        raise ComparisonError(f"fits use different rows ({a.n_rows} and {b.n_rows} rows): refit on the same rows")
+    if a.training is None or b.training is None:
+        return
+    ta, tb = a.training, b.training
+    same_w = (ta.weights is None and tb.weights is None) or (
+        ta.weights is not None and tb.weights is not None and np.array_equal(ta.weights, tb.weights))
+    if not (ta.index.equals(tb.index) and np.array_equal(ta.y, tb.y) and same_w):
+        raise ComparisonError("fits use different rows, responses or weights: refit on the same rows")
+
+
+def _check_nested(small, large):
+    s, big = _structure(small), _structure(large)
+    missing = [c for c in s if c not in big]
+    looser = [c for c, (loc, sc) in s.items() if c in big and (_RANK[loc] > _RANK[big[c][0]] or sc > big[c][1])]
+    if missing or looser:
+        raise ComparisonError(
+            "the smaller fit is not nested in the larger one: "
+            + "; ".join(filter(None, [missing and f"not in the larger fit: {', '.join(missing)}",
+                                      looser and f"freer in the smaller fit: {', '.join(looser)}"]))
+        )
+    if small.training is not None and large.training is not None:
+        ls, ll = layout_of(small), layout_of(large)
+        differ = [c for i, c in enumerate(ls.columns)
+                  if not np.allclose(small.training.X[:, i], large.training.X[:, ll.columns.index(c)])]
+        if differ:
+            raise ComparisonError(f"columns with the same name hold different values: {', '.join(differ)}")
+
+
+def compare(smaller, larger):
+    """Likelihood-ratio test of a fit against a larger fit it is nested in.
+
+    ``statistic = 2 (loglik_larger - loglik_smaller)`` is referred to a chi-squared
+    distribution with ``df`` = the difference in the number of parameters (Wilks 1938).
+
+    Raises
+    ------
+    ComparisonError
+        If the fits are not nested (a predictor or a freer effect in the smaller fit that
+        the larger lacks; different link or levels) or were fitted on different rows.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Rows ``"smaller"``, ``"larger"``; columns ``model``, ``n_params``, ``loglik``,
+        ``statistic``, ``df``, ``p_value`` (the last three on the ``"larger"`` row).
+    """
+    _check_same_rows(smaller, larger)
+    _check_nested(smaller, larger)
+    df = larger.n_params - smaller.n_params
+    if df <= 0:
+        raise ComparisonError(f"the larger fit has no extra parameters ({larger.n_params} vs {smaller.n_params})")
+    stat = 2.0 * (larger.loglik - smaller.loglik)
+    stat = max(stat, 0.0) if stat > -1e-6 * (1 + abs(larger.loglik)) else stat
+    return pd.DataFrame(
+        {"model": [_describe(smaller), _describe(larger)], "n_params": [smaller.n_params, larger.n_params],
+         "loglik": [smaller.loglik, larger.loglik], "statistic": [np.nan, stat], "df": [np.nan, df],
+         "p_value": [np.nan, float(stats.chi2.sf(stat, df)) if stat >= 0 else np.nan]},
+        index=["smaller", "larger"],
+    )
+
+
+# ---- link comparison ---------------------------------------------------------------------
+def _fit_quietly(formula, data, name, kwargs):
+    """One fit with its warnings caught; returns a row of the link table and the warnings."""
+    from .fitting import fit
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            res = fit(formula, data, link=name, **kwargs)
+        except CrossingError as exc:
+            row = {"loglik": np.nan, "aic": np.nan, "bic": np.nan, "converged": False,
+                   "n_params": np.nan, "message": str(exc)}
+        else:
+            row = {"loglik": res.loglik, "aic": res.aic, "bic": res.bic, "converged": res.converged,
+                   "n_params": res.n_params, "message": res.message}
+    return row, caught
+
+
+def compare_links(formula, data, *, link=None, weights=None, levels=None, nonparallel=None,
+                  scale_by=None, max_iter=100):
+    """Fit the same model with several links and rank them.
+
+    Parameters
+    ----------
+    link : str or sequence of str, optional
+        Links to compare (default: all of :func:`~ordwidgets.core.links.link_names`).
+    weights, levels, nonparallel, scale_by, max_iter
+        Passed to :func:`~ordwidgets.core.fitting.fit` for every link.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Indexed by link name (index name ``"link"``); columns ``loglik``, ``aic``, ``bic``,
+        ``converged``, ``n_params``, ``message``.  Sorted best first: converged fits
+        before the others, then by AIC (every link has the same number of parameters, so
+        this is also the order of the log-likelihood).  Convergence problems are reported
+        in the table instead of as warnings; data warnings are raised once.
+    """
+    names = link_names() if link is None else [link] if isinstance(link, str) else list(link)
+    kwargs = {"weights": weights, "levels": levels, "nonparallel": nonparallel, "scale_by": scale_by,
+              "max_iter": max_iter}
+    rows, seen = {}, set()
+    for name in names:
+        lk = get_link(name)
+        rows[lk.name], caught = _fit_quietly(formula, data, lk.name, kwargs)
+        for w in caught:
+            if not issubclass(w.category, ConvergenceWarning) and str(w.message) not in seen:
+                seen.add(str(w.message))
+                warnings.warn(w.message, w.category, stacklevel=2)
+    table = pd.DataFrame.from_dict(rows, orient="index")
+    table.index.name = "link"
+    key = table.assign(_bad=~table["converged"].astype(bool), _aic=table["aic"].fillna(np.inf))
+    return table.loc[key.sort_values(["_bad", "_aic"], kind="stable").index]

@@ -1,0 +1,205 @@
+"""One cheap entry point computing everything the residual panel shows for a fit.
+
+:func:`residual_diagnostics` draws surrogate residuals (Liu & Zhang 2018, J. Amer. Statist.
+Assoc. 113:845-854) at the fitted or edited thresholds and returns a
+:class:`ResidualDiagnostics` holding plain arrays and DataFrames: QQ points, binned means
+against the fitted linear predictor and a chosen variable, the summary tests and a
+reproducible subset of rows for display.  Statistics always use all rows.
+"""
+from __future__ import annotations
+
+import weakref
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .diagnostics import Axis, SortedDraws, _ks_from_sorted, _qq_from_sorted, display_rows, moment_table
+from .residuals import ReferenceDistribution, draw_surrogate
+
+__all__ = ["ResidualDiagnostics", "residual_diagnostics"]
+
+TEST_COLUMNS = ["test", "against", "method", "statistic", "p_value", "flagged", "message"]
+
+
+@dataclass(frozen=True, eq=False)
+class ResidualDiagnostics:
+    """Residual diagnostics of one fit at one set of thresholds.
+
+    Attributes
+    ----------
+    kind : {"latent", "probability"}
+        Which surrogate residual was drawn (probability scale for non-parallel fits).
+    description : str
+        One sentence naming the residual, for the panel's caption.
+    reference : ReferenceDistribution
+        What the residuals follow under a correct model.
+    residuals : ndarray, shape (n_rows, draws)
+    fitted : ndarray, shape (n_rows,)
+        Fitted linear predictor ``eta = x'beta`` of the training rows.
+    x_name : str or None
+    x : ndarray, shape (n_rows,), or None
+        The chosen variable for the second trend plot.
+    qq : DataFrame
+        Columns ``theoretical``, ``sample`` (see :func:`~ordwidgets.core.diagnostics.qq_points`).
+    versus_fitted, versus_x : DataFrame (``versus_x`` is None without ``x``)
+        Columns ``center``, ``mean``, ``lower``, ``upper``, ``count``
+        (see :func:`~ordwidgets.core.diagnostics.binned_means`).
+    tests : DataFrame
+        One row per test with columns ``test`` (``"distance"``, ``"trend"``, ``"spread"``),
+        ``against`` (``"link distribution"``, ``"fitted"`` or a variable name), ``method``,
+        ``statistic``, ``p_value``, ``flagged`` (``p_value < alpha``) and ``message`` (one
+        plain-language sentence).
+    moments : DataFrame
+        Index ``center``, ``spread``; columns ``summary``, ``observed``, ``expected``
+        (median and IQR for cauchit).
+    rows : ndarray of int
+        Increasing positions of the rows to draw (at most ``max_points``).
+    """
+
+    kind: str
+    description: str
+    reference: ReferenceDistribution
+    residuals: np.ndarray
+    fitted: np.ndarray
+    x_name: str | None
+    x: np.ndarray | None
+    qq: pd.DataFrame
+    versus_fitted: pd.DataFrame
+    versus_x: pd.DataFrame | None
+    tests: pd.DataFrame
+    moments: pd.DataFrame
+    rows: np.ndarray
+
+    def points(self, draw=0) -> pd.DataFrame:
+        """The display subset: columns ``row`` (position), ``fitted``, ``x`` (if chosen) and
+        ``residual`` (of draw ``draw``)."""
+        cols = {"row": self.rows, "fitted": self.fitted[self.rows]}
+        if self.x is not None:
+            cols["x"] = self.x[self.rows]
+        cols["residual"] = self.residuals[self.rows, draw]
+        return pd.DataFrame(cols)
+
+
+def residual_diagnostics(res, *, x=None, thresholds=None, draws=1, seed=None, bins=20,
+                         level=0.95, quantiles=1000, max_points=5000, display_seed=0,
+                         alpha=0.01) -> ResidualDiagnostics:
+    """Everything the residual panel needs for a fit, thresholds, draws, seed and variable.
+
+    Parameters
+    ----------
+    res : FitResult
+        A fit that kept its training data.
+    x : str or array_like, optional
+        Variable for the second trend plot: a design column name (a column of ``res.training.X``), a column
+        of the training frame when the result keeps one, or an array with one value per
+        training row (for example a candidate predictor left out of the model).  It is also
+        tested for trend and spread.
+    thresholds : array_like, optional
+        Edited thresholds (the residuals follow them; the fitted effects are kept).
+    draws : int
+        Surrogate draws per row; plots average over draws, tests use the first draw.
+    seed : int, Generator or None
+        Seed of the surrogate draws.
+    bins : int
+        Bins of the trend plots.
+    level : float
+        Coverage of the binned-mean intervals.
+    quantiles : int
+        Maximum number of QQ points.
+    max_points : int
+        Maximum number of rows offered for display (``rows``); chosen with ``display_seed``.
+    alpha : float
+        Tests with ``p_value < alpha`` are flagged.
+
+    Returns
+    -------
+    ResidualDiagnostics
+    """
+    sur = draw_surrogate(res, draws=draws, seed=seed, thresholds=thresholds)
+    weights = res.training.weights
+    fitted = res.linear_predictor()
+    x_name, x_values = _resolve_x(res, x)
+    axes = _axes(res, fitted, x_name, x_values, bins)
+    ordered = SortedDraws.of(sur.residuals, weights)
+    return ResidualDiagnostics(
+        kind=sur.kind, description=sur.description, reference=sur.reference, residuals=sur.residuals,
+        fitted=fitted, x_name=x_name, x=x_values,
+        qq=_qq_from_sorted(ordered, sur.reference, quantiles),
+        versus_fitted=axes["fitted"].means(sur.residuals, level=level),
+        versus_x=None if x_values is None else axes[x_name].means(sur.residuals, level=level),
+        tests=_test_table(sur, ordered, axes, alpha),
+        moments=moment_table(sur.residuals, sur.reference),
+        rows=display_rows(len(fitted), max_points=max_points, seed=display_seed),
+    )
+
+
+def _resolve_x(res, x):
+    if x is None:
+        return None, None
+    if isinstance(x, str):
+        columns = _design_columns(res)
+        if x in columns:
+            return x, res.training.X[:, columns.index(x)]
+        frame = res.training.frame
+        if frame is not None and x in frame.columns:
+            return x, pd.to_numeric(frame[x], errors="coerce").to_numpy(float)
+        raise KeyError(f"x={x!r} is not a design column; choose one of {', '.join(columns) or '(none)'} "
+                       "or pass an array with one value per training row")
+    values = np.asarray(getattr(x, "to_numpy", lambda: x)(), dtype=float)
+    if values.shape != (res.n_rows,):
+        raise ValueError(f"x must have one value per training row ({res.n_rows}), got shape {values.shape}")
+    return str(getattr(x, "name", None) or "x"), values
+
+
+def _design_columns(res) -> list:
+    """Names of the columns of ``res.training.X`` (the layout's columns for extended fits)."""
+    layout = getattr(res, "layout", None)
+    return list(res.coef_names if layout is None else layout.columns)
+
+
+# Prepared axes per fit: variables do not change when thresholds are edited, so their bins
+# and least-squares terms are computed once and reused while the result lives.
+_AXIS_CACHE: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+
+
+def _axes(res, fitted, x_name, x_values, bins):
+    cache = _AXIS_CACHE.setdefault(res, {})
+    variables = {"fitted": fitted, **{n: res.training.X[:, j] for j, n in enumerate(_design_columns(res))}}
+    if x_values is not None:
+        variables[x_name] = x_values
+    axes = {}
+    for name, values in variables.items():
+        hit = cache.get((name, bins))
+        if hit is None or not np.array_equal(hit[0], values):
+            hit = (values, Axis.of(values, bins=bins, weights=res.training.weights))
+            cache[(name, bins)] = hit
+        axes[name] = hit[1]
+    return axes
+
+
+def _test_table(sur, ordered, axes, alpha):
+    v = sur.reference.cdf(sur.residuals[:, 0]) - 0.5
+    rows = [("distance", "link distribution", "Kolmogorov-Smirnov", *_ks_from_sorted(ordered, sur.reference))]
+    for name, axis in axes.items():
+        rows.append(("trend", name, "F-test on x and x^2", *axis.f_test(v)))
+        rows.append(("spread", name, "F-test of |residual| on x and x^2", *axis.f_test(np.abs(v))))
+    table = pd.DataFrame(rows, columns=TEST_COLUMNS[:5])
+    table["flagged"] = table["p_value"] < alpha
+    table["message"] = [_message(t, a, p, f, sur.reference) for t, a, p, f in
+                        zip(table["test"], table["against"], table["p_value"], table["flagged"])]
+    return table
+
+
+def _message(test, against, p, flagged, reference):
+    if not np.isfinite(p):
+        return f"{test} against {against}: not computable (constant variable)"
+    pv = "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+    if test == "distance":
+        return (f"residuals depart from the {reference.name} distribution: the link may be wrong ({pv})"
+                if flagged else f"residuals are consistent with the {reference.name} distribution ({pv})")
+    if test == "trend":
+        return (f"mean residual changes with {against}: a curvature or term may be missing ({pv})"
+                if flagged else f"no trend of the residuals with {against} ({pv})")
+    return (f"residual spread changes with {against}: a scale effect may be needed ({pv})"
+            if flagged else f"no change of residual spread with {against} ({pv})")
