@@ -11,6 +11,7 @@ import warnings
 
 import numpy as np
 
+from .dask_fit import is_dask_frame
 from .design import check_collinear, prepare, threshold_labels
 from .exceptions import OrdinalDataError, SeparationWarning
 from .links import get_link
@@ -53,7 +54,7 @@ def _to_user_scale(m, mean, sd):
 
 
 def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100, tol=1e-10,
-        keep_data=True, callback=None, nonparallel=None, scale_by=None):
+        keep_data=True, callback=None):
     """Fit a cumulative link model by maximum likelihood.
 
     ``P(Y <= j | x) = F(theta_j - x'beta)``, ``j = 1..J-1``, with strictly increasing
@@ -79,33 +80,23 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
         Keep the design in the result (needed for residuals, widgets and ``loglik_at``).
     callback : callable, optional
         ``callback(iteration, params, loglik, grad)`` after each Newton step.
-    nonparallel : list of str, optional
-        Predictors (variables, terms or design columns) that get a separate effect at each
-        threshold, ``P(Y <= j) = F(theta_j - x'beta - w'gamma_j)`` (partial proportional
-        odds, Peterson & Harrell 1990); named ``"<column> @ <threshold>"``.
-    scale_by : list of str, optional
-        Predictors of the latent scale, ``P(Y <= j) = F((theta_j - x'beta) / exp(z'zeta))``
-        (location-scale model, McCullagh 1980); named ``"scale: <column>"``.  Data columns
-        that are not in the formula enter the scale only.  See
-        :mod:`ordwidgets.core.extfit`.
 
     Returns
     -------
     FitResult
+        For a Dask DataFrame see :func:`ordwidgets.core.dask_fit.fit_dask` (same model,
+        sums reduced over partitions; the result keeps a sample of rows for display).
     """
-    if nonparallel or scale_by:
-        from .extfit import fit_extended
+    if is_dask_frame(data):
+        from .dask_fit import fit_dask
 
-        return fit_extended(formula, data, link=link, weights=weights, levels=levels, max_iter=max_iter,
-                            tol=tol, keep_data=keep_data, callback=callback, nonparallel=nonparallel,
-                            scale_by=scale_by)
+        return fit_dask(formula, data, link=link, weights=weights, levels=levels, max_iter=max_iter, tol=tol,
+                        keep_data=keep_data, callback=callback)
     lk = get_link(link)
     prep = prepare(formula, data, weights=weights, levels=levels)
     J, p = len(prep.levels), prep.X.shape[1]
     m = J - 1
-    used = prep.y.shape[0] if prep.weights is None else int(np.count_nonzero(prep.weights))
-    if used < m + p:
-        raise OrdinalDataError(f"{used} rows for {m + p} parameters: fewer rows than parameters")
+    check_enough_rows(prep.y.shape[0] if prep.weights is None else int(np.count_nonzero(prep.weights)), m + p)
     check_collinear(prep.X, prep.columns, prep.weights)
     mean, sd = standardise(prep.X, prep.weights)
     order, bounds = sort_by_category(prep.y, J)
@@ -113,26 +104,40 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
     Xs -= mean
     Xs /= sd
     design = SortedDesign(np.asfortranarray(Xs), bounds, None if prep.weights is None else prep.weights[order])
-    outcome, converged, message, condition = _maximise(design, lk, m, max_iter, tol, callback, formula)
+    fitted = _maximise(design, lk, m, max_iter, tol, callback, formula)
+    training = TrainingData(prep.X, prep.y, prep.weights, prep.index) if keep_data else None
+    return _result(prep, lk, fitted, mean, sd, formula=formula, n_obs=float(design.counts().sum()),
+                   n_rows=int(len(prep.y)), training=training, options={"weights": weights, "levels": levels})
+
+
+def check_enough_rows(used, n_params):
+    """Refuse fewer rows (with positive weight) than parameters."""
+    if used < n_params:
+        raise OrdinalDataError(f"{used} rows for {n_params} parameters: fewer rows than parameters")
+
+
+def _result(prep, lk, fitted, mean, sd, *, formula, n_obs, n_rows, training, options):
+    """Map a Newton outcome on standardised columns back to the user's scale."""
+    outcome, converged, message, condition = fitted
+    m = len(prep.levels) - 1
     A = _to_user_scale(m, mean, sd)
     params = A @ outcome.params
     cov = _covariance(outcome.hess, A)
     if converged:
         converged, message = _separation_check(outcome.params, outcome.hess, m, prep.columns, message)
     grad_user = np.linalg.solve(A.T, outcome.grad)
-    training = TrainingData(prep.X, prep.y, prep.weights, prep.index) if keep_data else None
     return FitResult(
         link=lk, levels=prep.levels, threshold_names=tuple(threshold_labels(prep.levels)),
         coef_names=prep.columns, params=params, cov=cov, loglik=float(outcome.loglik),
-        n_obs=float(design.counts().sum()), n_rows=int(len(prep.y)), iterations=outcome.iterations,
+        n_obs=n_obs, n_rows=n_rows, iterations=outcome.iterations,
         converged=converged, message=message, max_grad=float(np.max(np.abs(grad_user), initial=0.0)),
         condition=condition, formula=formula, response=prep.response, model_spec=prep.model_spec,
-        notes=tuple(prep.notes), training=training, options={"weights": weights, "levels": levels},
+        notes=tuple(prep.notes), training=training, options=options,
     )
 
 
 def _maximise(design, lk, m, max_iter, tol, callback, what):
-    start = np.concatenate([closed_form_thresholds(lk, design.counts()), np.zeros(design.X.shape[1])])
+    start = np.concatenate([closed_form_thresholds(lk, design.counts()), np.zeros(design.n_params - m)])
 
     def evaluate(x, order):
         return design.sums(lk, x, order=order)
@@ -141,7 +146,7 @@ def _maximise(design, lk, m, max_iter, tol, callback, what):
         return thresholds_increasing(x, m)
 
     outcome = newton_maximize(evaluate, start, feasible=feasible, max_iter=max_iter, tol=tol, callback=callback)
-    if lk.name == "cauchit" and design.X.shape[1]:
+    if lk.name == "cauchit" and design.n_params > m:
         outcome = _second_start(outcome, design, evaluate, feasible, m, max_iter, tol)
     converged, message, condition = check_convergence(outcome, what=what)
     return outcome, converged, message, condition
@@ -150,7 +155,7 @@ def _maximise(design, lk, m, max_iter, tol, callback, what):
 def _second_start(first, design, evaluate, feasible, m, max_iter, tol):
     """Cauchit guard: restart from the probit optimum and keep the higher maximum."""
     probit = get_link("probit")
-    start = np.concatenate([closed_form_thresholds(probit, design.counts()), np.zeros(design.X.shape[1])])
+    start = np.concatenate([closed_form_thresholds(probit, design.counts()), np.zeros(design.n_params - m)])
     pre = newton_maximize(lambda x, o: design.sums(probit, x, order=o), start, feasible=feasible, max_iter=max_iter, tol=tol)
     second = newton_maximize(evaluate, pre.params, feasible=feasible, max_iter=max_iter, tol=tol)
     best = second if second.loglik > first.loglik + 1e-9 else first

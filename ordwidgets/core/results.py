@@ -8,8 +8,6 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .effects import prediction_intervals, probabilities_at
-from .extended import error_bounds_of, location_predictor
 from .links import Link
 from .probabilities import category_probabilities, interval_logprob
 
@@ -23,13 +21,30 @@ SIGN_CONVENTION = (
 
 @dataclass(frozen=True, eq=False)
 class TrainingData:
-    """The rows a result was fitted on (original order, after cleaning)."""
+    """The rows a result was fitted on (original order, after cleaning).
+
+    For a fit on a Dask frame these are a reproducible sample of the rows fitted:
+    ``sampled_from`` is then the number of rows the sample was drawn from (``None`` when
+    the rows are all the rows fitted), and everything computed from them without new data
+    (``predict()``, ``error_bounds()``, ``loglik_at()``, residuals) refers to the sample.
+    """
 
     X: np.ndarray
     y: np.ndarray
     weights: np.ndarray | None
     index: pd.Index
     frame: pd.DataFrame | None = None
+    sampled_from: int | None = None
+
+    @property
+    def is_sample(self) -> bool:
+        return self.sampled_from is not None
+
+    def describe(self) -> str:
+        """``"all 1,000 rows"`` or ``"a sample of 20,000 of 5,000,000 rows"`` (for display)."""
+        if self.sampled_from is None:
+            return f"all {len(self.y):,} rows"
+        return f"a sample of {len(self.y):,} of {self.sampled_from:,} rows"
 
 
 @dataclass(frozen=True, eq=False)
@@ -62,9 +77,6 @@ class FitResult:
     notes: tuple = ()
     training: TrainingData | None = field(default=None, repr=False)
     options: dict = field(default_factory=dict)
-    #: Column layout (:class:`~ordwidgets.core.extended.ModelLayout`) of a fit with
-    #: per-threshold or scale effects; ``None`` for a parallel fit.
-    layout: object = field(default=None, repr=False)
 
     # ---- parameters ------------------------------------------------------------------------
     @property
@@ -128,20 +140,17 @@ class FitResult:
         """Design matrix (no intercept) for ``newdata`` (default: the training rows)."""
         if newdata is None:
             return self._training().X
-        cols = self.coef_names if self.layout is None else self.layout.columns
-        if self.model_spec is None or not cols:
+        if self.model_spec is None or not self.coef_names:
             return np.empty((len(newdata), 0))
         mm = self.model_spec.get_model_matrix(newdata, na_action="ignore")
-        return mm[list(cols)].to_numpy(float)
+        return mm[list(self.coef_names)].to_numpy(float)
 
     def linear_predictor(self, newdata=None) -> np.ndarray:
-        """``eta = x'beta`` for each row (parallel location effects only)."""
+        """``eta = x'beta`` for each row."""
         X = self.design(newdata)
-        if self.layout is not None:
-            return location_predictor(self.layout, self.params, X)
         return X @ self.params[self.n_thresholds :] if X.shape[1] else np.zeros(len(X))
 
-    def predict(self, newdata=None, kind="probabilities", *, level=None) -> pd.DataFrame | pd.Series:
+    def predict(self, newdata=None, kind="probabilities") -> pd.DataFrame | pd.Series:
         """Predictions for ``newdata`` (default: the training rows).
 
         Parameters
@@ -150,22 +159,12 @@ class FitResult:
             Category probabilities (one column per level), cumulative probabilities
             ``P(Y <= j)`` (one column per level), the linear predictor ``x'beta`` or the most
             likely level.
-        level : float, optional
-            With ``kind`` "probabilities" or "cumulative": add delta-method intervals of this
-            coverage, computed on the logit scale so they stay in ``[0, 1]``.  The frame then
-            has a column MultiIndex ``(part, level)``, ``part`` in "estimate", "lower",
-            "upper" (see :func:`ordwidgets.core.effects.prediction_intervals`).
         """
-        if level is not None:
-            return prediction_intervals(self, newdata, kind=kind, level=level)
         eta = self.linear_predictor(newdata)
         index = self._index(newdata, len(eta))
         if kind == "latent":
             return pd.Series(eta, index=index, name="latent")
-        if self.layout is None:
-            probs = category_probabilities(self.link, self.params[: self.n_thresholds], eta)
-        else:
-            probs = probabilities_at(self, self.design(newdata))
+        probs = category_probabilities(self.link, self.params[: self.n_thresholds], eta)
         cols = [str(v) for v in self.levels]
         if kind == "probabilities":
             return pd.DataFrame(probs, index=index, columns=cols)
@@ -192,8 +191,6 @@ class FitResult:
         -------
         lower, upper : ndarray, shape (n_rows,)
         """
-        if self.layout is not None:
-            return error_bounds_of(self, thresholds, coefficients)
         tr = self._training()
         theta = self.params[: self.n_thresholds] if thresholds is None else np.asarray(thresholds, float)
         beta = self.params[self.n_thresholds :] if coefficients is None else np.asarray(coefficients, float)
@@ -202,37 +199,14 @@ class FitResult:
         return cuts[tr.y] - eta, cuts[tr.y + 1] - eta
 
     def loglik_at(self, thresholds=None, coefficients=None) -> float:
-        """Log-likelihood of the training rows at other parameter values (cheap, no refit)."""
+        """Log-likelihood of the training rows at other parameter values (cheap, no refit).
+
+        For a Dask fit the training rows are the kept sample (``training.sampled_from``):
+        the value is the sample's log-likelihood, not comparable with ``loglik``.
+        """
         tr = self._training()
         logp = interval_logprob(self.link, *self.error_bounds(thresholds, coefficients))
         return float(logp.sum() if tr.weights is None else tr.weights @ logp)
-
-    # ---- inference (see ordwidgets.core.inference, .potest, .effects) ----------------------
-    @property
-    def crossing(self) -> tuple:
-        """Threshold pairs whose fitted cumulative probabilities cross inside the data range.
-
-        Empty (false) for parallel fits and when nothing crosses.
-        """
-        return tuple(self.options.get("crossing", ()))
-
-    def intervals(self, level=0.95, *, method="wald") -> pd.DataFrame:
-        """Confidence intervals (``"wald"`` or ``"profile"``) for every parameter."""
-        from .inference import intervals
-
-        return intervals(self, level=level, method=method)
-
-    def proportional_odds_test(self) -> pd.DataFrame:
-        """Likelihood-ratio and Brant tests of parallel effects, per predictor and overall."""
-        from .potest import proportional_odds_test
-
-        return proportional_odds_test(self)
-
-    def average_marginal_effects(self) -> pd.DataFrame:
-        """Average marginal effects on each category probability, with delta-method SEs."""
-        from .effects import average_marginal_effects
-
-        return average_marginal_effects(self)
 
     def _training(self) -> TrainingData:
         if self.training is None:
@@ -248,10 +222,13 @@ class FitResult:
 
     # ---- display ----------------------------------------------------------------------------
     def facts(self) -> dict:
-        """Headline facts shown with the table."""
+        """Headline facts shown with the table (with the display sample of a Dask fit)."""
+        sample = {} if self.training is None or not self.training.is_sample else {
+            "rows shown": self.training.describe()}
         return {
             "link": f"{self.link.name} (latent {self.link.latent})",
             "rows": self.n_rows,
+            **sample,
             "n (weighted)": self.n_obs,
             "log-likelihood": self.loglik,
             "AIC": self.aic,

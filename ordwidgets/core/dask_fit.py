@@ -1,0 +1,284 @@
+"""``fit`` on a Dask DataFrame: the same model and result type, with sums reduced over partitions.
+
+The likelihood, its gradient and its Hessian are sums over rows, so every Newton evaluation
+is one task per partition (:func:`~ordwidgets.core.dask_partitions.sums_partition`) whose
+few numbers are added up; rows never leave their partition.  Before the iteration one pass
+learns the response levels, the levels of the categorical predictors and the missing-value
+counts, and a second pass the column moments (collinearity check, internal
+standardisation) and a reproducible sample of rows kept in the result for residuals and
+display.  The fit and every statistic use all rows.
+
+The module imports without Dask; Dask is imported only when a Dask frame is fitted.  Tasks
+run on whatever scheduler is active: the local threaded one by default, or a
+``dask.distributed`` ``Client``.
+"""
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, replace
+
+import numpy as np
+import pandas as pd
+
+from .design import (PreparedData, _design_matrix, _required_columns, check_collinear_moments,
+                     empty_levels, encode_response, split_formula, unusable_notes)
+from .dask_partitions import PartitionPlan, formula_input, moment_partition, scan_partition, sums_partition
+from .exceptions import DataWarning, OrdinalDataError
+from .links import get_link
+from .progress import progress_for
+from .results import TrainingData
+
+__all__ = ["fit_dask", "is_dask_frame", "PartitionedDesign", "DEFAULT_SAMPLE_ROWS"]
+
+DEFAULT_SAMPLE_ROWS = 20_000
+INSTALL_HINT = "fitting a Dask DataFrame needs the optional extra: pip install 'ordwidgets[dask]'"
+
+
+def is_dask_frame(data) -> bool:
+    """Whether ``data`` is a Dask DataFrame (checked without importing Dask)."""
+    module = type(data).__module__ or ""
+    return module.split(".")[0] == "dask" and hasattr(data, "to_delayed")
+
+
+def _require_dask():
+    try:
+        import dask
+    except ImportError as exc:
+        raise ImportError(INSTALL_HINT) from exc
+    return dask
+
+
+class PartitionRunner:
+    """Run one task per partition on the active scheduler and bring back the small results.
+
+    With a ``dask.distributed`` client the tasks are submitted as futures and cancelled if
+    the caller is interrupted, so a stopped fit leaves nothing running on the cluster.
+    """
+
+    def __init__(self, frame):
+        self.dask = _require_dask()
+        self.parts = frame.to_delayed(optimize_graph=True)
+        owner = getattr(self.dask.base.get_scheduler(), "__self__", None)
+        self.client = owner if hasattr(owner, "gather") and hasattr(owner, "cancel") else None
+
+    @property
+    def n_partitions(self) -> int:
+        return len(self.parts)
+
+    def map(self, func, plan, *args, numbered=False):
+        """``[func(part, [number,] plan, *args) for each partition]``, computed in parallel."""
+        delayed = self.dask.delayed
+        shared = delayed(plan, traverse=False)
+        tasks = [delayed(func, pure=False)(part, *((i,) if numbered else ()), shared, *args)
+                 for i, part in enumerate(self.parts)]
+        if self.client is None:
+            return list(self.dask.compute(*tasks))
+        futures = self.client.compute(tasks)
+        try:
+            return self.client.gather(futures)
+        except BaseException:
+            self.client.cancel(futures)
+            raise
+
+
+@dataclass(eq=False)
+class PartitionedDesign:
+    """Stands in for :class:`~ordwidgets.core.objective.SortedDesign` over partitions.
+
+    ``sums`` sends the parameters to every partition and adds the returned
+    log-likelihoods, gradients and Hessians.
+    """
+
+    runner: PartitionRunner
+    plan: PartitionPlan
+    level_counts: np.ndarray
+
+    @property
+    def n_levels(self) -> int:
+        return len(self.level_counts)
+
+    @property
+    def n_params(self) -> int:
+        return self.n_levels - 1 + len(self.plan.names)
+
+    def counts(self):
+        """Weighted number of rows in each category (all partitions)."""
+        return self.level_counts
+
+    def sums(self, link, params, *, order=2):
+        """Log-likelihood and, for ``order`` 1 or 2, gradient and Hessian over all rows."""
+        parts = self.runner.map(sums_partition, self.plan, get_link(link).name, np.asarray(params, float), order)
+        ll = float(sum(p[0] for p in parts))
+        grad = sum(p[1] for p in parts) if order >= 1 else None
+        hess = sum(p[2] for p in parts) if order >= 2 else None
+        return ll, grad, hess
+
+
+def fit_dask(formula, data, *, link="logit", weights=None, levels=None, max_iter=100, tol=1e-10,
+             keep_data=True, callback=None, sample_rows=DEFAULT_SAMPLE_ROWS, seed=0, progress="auto",
+             nonparallel=None, scale_by=None):
+    """Fit a cumulative link model to a Dask DataFrame (same model and result as ``fit``).
+
+    Parameters
+    ----------
+    formula, link, weights, levels, max_iter, tol, callback
+        As in :func:`ordwidgets.core.fitting.fit`; ``weights`` must name a column.
+    data : dask.dataframe.DataFrame
+    keep_data : bool
+        Keep a sample of rows in ``result.training`` (for residuals and display).
+    sample_rows : int
+        Size of that sample: uniform without replacement, reproducible for the same data,
+        partitioning and ``seed``.  ``predict()``, ``error_bounds()`` and ``loglik_at()``
+        without new data refer to the sample; ``loglik``, estimates and standard errors to
+        all rows.
+    seed : int
+        Seed of the sample.
+    progress : {"auto", True, False} or callable
+        Status line with the stage and each Newton step (log-likelihood, max |gradient|):
+        ``"auto"`` in notebooks only; see :func:`ordwidgets.core.progress.progress_for`.
+    nonparallel, scale_by
+        Not available for Dask frames yet (refused).
+
+    Returns
+    -------
+    FitResult
+        ``options`` records ``engine="dask"``, the partition count and the sample settings;
+        ``training.sampled_from`` the number of rows the sample was drawn from.
+
+    Raises
+    ------
+    KeyboardInterrupt
+        Passed on unchanged (running cluster tasks are cancelled; nothing is left half-built).
+    """
+    if nonparallel or scale_by:
+        raise ValueError("nonparallel= and scale_by= are not supported for Dask frames yet; "
+                         "fit a pandas DataFrame (or a sample) for the extended model")
+    if weights is not None and not isinstance(weights, str):
+        raise OrdinalDataError("for a Dask frame weights= must name a column of the frame")
+    lk = get_link(link)
+    runner = PartitionRunner(data)
+    show = progress_for(progress, callback, prefix=f"ordwidgets fit on {runner.n_partitions} partitions · ")
+    try:
+        return _fit(formula, data, runner, show, lk, weights, levels, max_iter, tol,
+                    sample_rows if keep_data else 0, seed)
+    except KeyboardInterrupt:
+        show.show("interrupted; no result was made")
+        raise
+
+
+def _fit(formula, data, runner, show, lk, weights, levels, max_iter, tol, sample_rows, seed):
+    from .fitting import _maximise, _result, check_enough_rows
+
+    response, rhs = split_formula(formula)
+    if response not in data.columns:
+        raise OrdinalDataError(f"response column {response!r} is not in the data")
+    columns = _required_columns(rhs, data)
+    plan = PartitionPlan(response, tuple(columns), weights, categorical=_categorical(data._meta, columns))
+    show.show("pass 1: checking rows and learning levels")
+    plan, counts, scan, notes = _learn_levels(runner, plan, levels, rhs)
+    m = len(counts) - 1
+    show.show("pass 2: column moments and sample")
+    moments = runner.map(moment_partition, plan, sample_rows, seed, numbered=True)
+    check_enough_rows(scan["nonzero"], m + len(plan.names))
+    mean, cov = _combine_moments(moments, len(plan.names))
+    check_collinear_moments(plan.names, mean, cov)
+    sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
+    plan = replace(plan, mean=mean, sd=np.where(sd > 0, sd, 1.0))
+    design = PartitionedDesign(runner, plan, counts)
+    fitted = _maximise(design, lk, m, max_iter, tol, show, formula)
+    training = _sample(moments, sample_rows, scan["rows"]) if sample_rows else None
+    prep = PreparedData(np.empty((0, len(plan.names))), np.empty(0, np.intp), None, plan.levels_kept,
+                        plan.names, response, rhs, plan.spec, pd.RangeIndex(0), notes)
+    result = _result(prep, lk, fitted, plan.mean, plan.sd, formula=formula, n_obs=float(counts.sum()),
+                     n_rows=scan["rows"], training=training, options=_options(weights, levels, runner, sample_rows, seed))
+    show.show(f"done: {result.message}, log-likelihood {result.loglik:.8g}")
+    return result
+
+
+def _options(weights, levels, runner, sample_rows, seed):
+    return {"weights": weights, "levels": levels, "engine": "dask", "partitions": runner.n_partitions,
+            "sample_rows": sample_rows, "sample_seed": seed}
+
+
+def _categorical(meta, columns):
+    """Predictors whose levels must be learnt: non-numeric or boolean columns."""
+    return tuple(c for c in columns if not pd.api.types.is_numeric_dtype(meta[c].dtype)
+                 or pd.api.types.is_bool_dtype(meta[c].dtype))
+
+
+def _learn_levels(runner, plan, levels, rhs):
+    """Pass 1: data checks, response levels, empty levels and the model spec."""
+    scan = _combine_scans(runner.map(scan_partition, plan))
+    notes = unusable_notes(scan["tally"])
+    values = scan["values"]
+    codes, all_levels = encode_response(pd.Series(values.index), levels, name=plan.response)
+    counts = np.bincount(codes, weights=values.to_numpy(float), minlength=len(all_levels))
+    kept, fitted_levels, more = empty_levels(counts, all_levels, plan.response)
+    notes += more
+    for n in notes:
+        warnings.warn(n, DataWarning, stacklevel=5)
+    template = formula_input(_template(scan["head"], scan["categories"]), plan.categorical)
+    _, names, spec = _design_matrix(rhs, template)
+    if names and getattr(spec, "transform_state", None):
+        raise OrdinalDataError(
+            f"the predictors {rhs!r} use transforms that learn from the data (such as center, "
+            "scale or splines); on a Dask frame compute those columns first"
+        )
+    plan = replace(plan, all_levels=all_levels, kept=kept, spec=spec, names=names)
+    return plan, counts if kept is None else counts[kept], scan, notes
+
+
+def _combine_scans(scans):
+    tally = {}
+    for s in scans:
+        for kind, (rows, cells) in s["tally"].items():
+            before = tally.get(kind)
+            tally[kind] = (rows, cells) if before is None else (before[0] + rows, before[1].add(cells, fill_value=0))
+    values = pd.concat([s["values"] for s in scans])
+    values = values.groupby(level=0, observed=False, sort=False).sum()
+    cats = {c: [s["categories"][c] for s in scans] for c in scans[0]["categories"]}
+    heads = [s["head"] for s in scans if len(s["head"])]
+    return {"tally": tally, "values": values[values.index.notna()], "nonzero": sum(s["nonzero"] for s in scans),
+            "rows": sum(s["rows"] for s in scans), "categories": cats, "head": heads[0] if heads else scans[0]["head"]}
+
+
+def _template(head, categories):
+    """A few rows in which every categorical predictor takes each of its values at least once."""
+    if not len(head):
+        raise OrdinalDataError("no usable rows: every row has a missing value")
+    found = {c: _values_of(head[c], parts) for c, parts in categories.items()}
+    size = max([len(head)] + [len(v) for v in found.values()])
+    frame = head.iloc[np.arange(size) % len(head)].reset_index(drop=True)
+    for c, vals in found.items():
+        frame[c] = pd.array(np.resize(np.asarray(vals, dtype=object), size), dtype=head[c].dtype)
+    return frame
+
+
+def _values_of(column, parts):
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        return list(column.dtype.categories)
+    return list(pd.unique(np.concatenate([np.asarray(p, dtype=object) for p in parts])))
+
+
+def _combine_moments(parts, p):
+    """Pooled weighted mean and covariance from per-partition moments (Chan et al. 1979)."""
+    total = sum(q["weight"] for q in parts)
+    mean = sum(q["weight"] * q["mean"] for q in parts) / total if p else np.zeros(0)
+    m2 = np.zeros((p, p))
+    for q in parts:
+        d = q["mean"] - mean
+        m2 += q["m2"] + q["weight"] * np.outer(d, d)
+    return mean, m2 / total
+
+
+def _sample(parts, size, population):
+    """The ``size`` rows with the smallest keys, in partition and row order."""
+    s = [q["sample"] for q in parts]
+    keys = np.concatenate([q["key"] for q in s])
+    pick = np.sort(np.argsort(keys, kind="stable")[:size])
+    X = np.concatenate([q["X"] for q in s])[pick]
+    y = np.concatenate([q["y"] for q in s])[pick]
+    w = None if s[0]["w"] is None else np.concatenate([q["w"] for q in s])[pick]
+    frame = pd.concat([q["frame"] for q in s]).iloc[pick]
+    whole = len(y) == population
+    return TrainingData(np.asfortranarray(X), y, w, frame.index, frame=frame, sampled_from=None if whole else population)

@@ -1,0 +1,178 @@
+"""What each Dask task does to one partition (plain pandas and numpy; no Dask import).
+
+A partitioned fit makes three kinds of pass over the rows, each one task per partition
+whose small result is sent back and added up; no partition is ever moved whole:
+
+1. :func:`scan_partition` checks the rows with the same rules as the in-memory path and
+   counts what is needed to fix the model up front: missing and infinite cells per column,
+   the (weighted) count of every response value and the values of each categorical
+   predictor.
+2. :func:`moment_partition` builds the design with the model spec learnt from those levels
+   and returns the weighted column means and centred cross-products (for the collinearity
+   check and the internal standardisation) and the rows of the reproducible sample.
+3. :func:`sums_partition` returns the log-likelihood, gradient and Hessian of the
+   partition's rows at given parameters (one call per Newton evaluation).
+
+Every task receives a :class:`PartitionPlan`, a small picklable description of the model,
+so the tasks run alike on the threaded scheduler and on ``dask.distributed`` workers.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from .design import _check_mixed, _weights_array, unusable_rows
+from .exceptions import OrdinalDataError
+from .objective import SortedDesign, sort_by_category
+
+__all__ = ["PartitionPlan", "scan_partition", "moment_partition", "sums_partition", "formula_input"]
+
+HEAD_ROWS = 5
+
+
+@dataclass(frozen=True, eq=False)
+class PartitionPlan:
+    """The model as every partition task sees it.
+
+    Attributes
+    ----------
+    response, columns, weights
+        Response column, predictor variables and weights column (or ``None``).
+    categorical : tuple of str
+        Predictors whose values are scanned (object or string columns).
+    all_levels : tuple
+        Response levels in order, before empty levels are dropped.
+    kept : ndarray or None
+        Positions in ``all_levels`` of the levels fitted (``None``: all).
+    spec, names
+        formulaic model spec (learnt once, so every partition yields the same columns) and
+        the design columns used.
+    mean, sd
+        Global weighted column means and standard deviations (internal standardisation).
+    """
+
+    response: str
+    columns: tuple
+    weights: str | None
+    categorical: tuple = ()
+    all_levels: tuple = ()
+    kept: np.ndarray | None = None
+    spec: object = None
+    names: tuple = ()
+    mean: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    sd: np.ndarray = field(default_factory=lambda: np.ones(0))
+
+    @property
+    def levels_kept(self) -> tuple:
+        """The response levels fitted (those with observations)."""
+        return self.all_levels if self.kept is None else tuple(self.all_levels[i] for i in self.kept)
+
+    @property
+    def n_levels(self) -> int:
+        return len(self.levels_kept)
+
+
+def _usable(part, plan):
+    """Rows usable for the fit, their weights and the tally of the rows dropped."""
+    w = _weights_array(plan.weights, part)
+    keep, tally = unusable_rows(part, plan.response, list(plan.columns), w)
+    weights = None if w is None else w[keep].to_numpy(float)
+    return part.loc[keep], weights, tally
+
+
+def scan_partition(part, plan):
+    """First pass: data checks and the counts that fix the levels.
+
+    Returns
+    -------
+    dict
+        ``tally`` (missing and infinite cells), ``values`` (weighted count of each response
+        value), ``rows`` (usable rows), ``nonzero`` (those with positive weight), ``categories`` (values of each
+        categorical predictor) and ``head`` (a few usable rows, to learn the model spec).
+    """
+    _check_mixed(part, list(plan.columns))
+    rows, w, tally = _usable(part, plan)
+    values = rows[plan.response]
+    if w is None:
+        counts = values.value_counts(sort=False, dropna=True)
+    else:
+        counts = pd.Series(w, index=values.index).groupby(values, observed=False, sort=False).sum()
+    cats = {c: pd.unique(rows[c]) for c in plan.categorical}
+    nonzero = len(rows) if w is None else int(np.count_nonzero(w))
+    return {"tally": tally, "values": counts, "rows": len(rows), "nonzero": nonzero, "categories": cats,
+            "head": rows.head(HEAD_ROWS)}
+
+
+def response_codes(values, plan):
+    """Codes ``0..J-1`` of the fitted levels for a column of response values."""
+    codes = pd.Categorical(values, categories=list(plan.all_levels)).codes.astype(np.intp)
+    if np.any(codes < 0):
+        raise OrdinalDataError(
+            f"response {plan.response!r} has values not seen when the levels were learnt "
+            "(did the data change during the fit?)"
+        )
+    if plan.kept is None:
+        return codes
+    remap = np.full(len(plan.all_levels), -1, dtype=np.intp)
+    remap[plan.kept] = np.arange(len(plan.kept))
+    return remap[codes]
+
+
+def formula_input(rows, columns):
+    """Rows with string-typed ``columns`` as plain objects (Dask stores text as Arrow strings,
+    which formulaic would not treat as categorical)."""
+    text = [c for c in columns if pd.api.types.is_string_dtype(rows[c].dtype)
+            and not isinstance(rows[c].dtype, pd.CategoricalDtype) and rows[c].dtype != object]
+    return rows.astype({c: object for c in text}) if text else rows
+
+
+def design_arrays(part, plan):
+    """Design (user scale), response codes, weights and usable rows of one partition."""
+    rows, w, _ = _usable(part, plan)
+    y = response_codes(rows[plan.response], plan)
+    if not plan.names:
+        return np.empty((len(rows), 0)), y, w, rows
+    mm = plan.spec.get_model_matrix(formula_input(rows, plan.categorical), na_action="ignore")
+    return np.asfortranarray(mm[list(plan.names)].to_numpy(float)), y, w, rows
+
+
+def moment_partition(part, number, plan, sample_rows, seed):
+    """Second pass: weighted moments of the design and this partition's sample candidates.
+
+    Every usable row gets a uniform key from a generator seeded with ``(seed, number)``;
+    the ``sample_rows`` smallest keys of all partitions form the sample, so the sample is
+    reproducible for the same data, partitioning and seed.
+
+    Returns
+    -------
+    dict
+        ``weight`` (sum of weights), ``mean`` and ``m2`` (centred weighted cross-products),
+        and ``sample`` (candidate rows with their keys).
+    """
+    X, y, w, rows = design_arrays(part, plan)
+    wt = np.ones(len(y)) if w is None else w
+    total = float(wt.sum())
+    mean = (wt @ X) / total if total > 0 else np.zeros(X.shape[1])
+    Xc = X - mean
+    keys = np.random.default_rng([seed, number]).random(len(y))
+    pick = np.arange(len(y)) if len(y) <= sample_rows else np.sort(np.argpartition(keys, sample_rows)[:sample_rows])
+    sample = {"key": keys[pick], "part": np.full(len(pick), number), "pos": pick, "X": X[pick],
+              "y": y[pick], "w": None if w is None else w[pick], "frame": rows.iloc[pick]}
+    return {"weight": total, "mean": mean, "m2": Xc.T @ (Xc * wt[:, None]), "sample": sample}
+
+
+def sums_partition(part, plan, link, params, order):
+    """Log-likelihood, gradient and Hessian (internal scale) of one partition's rows."""
+    X, y, w, _ = design_arrays(part, plan)
+    J = plan.n_levels
+    if len(y) == 0:
+        k = len(params)
+        return 0.0, np.zeros(k) if order >= 1 else None, np.zeros((k, k)) if order >= 2 else None
+    rank, bounds = sort_by_category(y, J)
+    Xs = X[rank]
+    Xs -= plan.mean
+    Xs /= plan.sd
+    design = SortedDesign(np.asfortranarray(Xs), bounds, None if w is None else w[rank])
+    return design.sums(link, params, order=order)
