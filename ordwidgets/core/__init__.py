@@ -15,6 +15,11 @@ __all__ = [
     "SeparationWarning",
 ]
 
+from .exceptions import ComparisonError, CrossingError, CrossingWarning  # noqa: E402
+from .inference import compare, compare_links  # noqa: E402
+
+__all__ += ["compare", "compare_links", "CrossingError", "CrossingWarning", "ComparisonError"]
+
 from .dask_fit import fit_dask  # noqa: E402  (imports Dask only when a Dask frame is fitted)
 
 __all__ += ["fit_dask"]

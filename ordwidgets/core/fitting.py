@@ -54,7 +54,7 @@ def _to_user_scale(m, mean, sd):
 
 
 def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100, tol=1e-10,
-        keep_data=True, callback=None):
+        keep_data=True, callback=None, nonparallel=None, scale_by=None):
     """Fit a cumulative link model by maximum likelihood.
 
     ``P(Y <= j | x) = F(theta_j - x'beta)``, ``j = 1..J-1``, with strictly increasing
@@ -80,6 +80,15 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
         Keep the design in the result (needed for residuals, widgets and ``loglik_at``).
     callback : callable, optional
         ``callback(iteration, params, loglik, grad)`` after each Newton step.
+    nonparallel : list of str, optional
+        Predictors (variables, terms or design columns) that get a separate effect at each
+        threshold, ``P(Y <= j) = F(theta_j - x'beta - w'gamma_j)`` (partial proportional
+        odds, Peterson & Harrell 1990); named ``"<column> @ <threshold>"``.
+    scale_by : list of str, optional
+        Predictors of the latent scale, ``P(Y <= j) = F((theta_j - x'beta) / exp(z'zeta))``
+        (location-scale model, McCullagh 1980); named ``"scale: <column>"``.  Data columns
+        that are not in the formula enter the scale only.  See
+        :mod:`ordwidgets.core.extfit`.
 
     Returns
     -------
@@ -91,7 +100,13 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
         from .dask_fit import fit_dask
 
         return fit_dask(formula, data, link=link, weights=weights, levels=levels, max_iter=max_iter, tol=tol,
-                        keep_data=keep_data, callback=callback)
+                        keep_data=keep_data, callback=callback, nonparallel=nonparallel, scale_by=scale_by)
+    if nonparallel or scale_by:
+        from .extfit import fit_extended
+
+        return fit_extended(formula, data, link=link, weights=weights, levels=levels, max_iter=max_iter,
+                            tol=tol, keep_data=keep_data, callback=callback, nonparallel=nonparallel,
+                            scale_by=scale_by)
     lk = get_link(link)
     prep = prepare(formula, data, weights=weights, levels=levels)
     J, p = len(prep.levels), prep.X.shape[1]

@@ -8,6 +8,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .effects import prediction_intervals, probabilities_at
+from .extended import error_bounds_of, location_predictor
 from .links import Link
 from .probabilities import category_probabilities, interval_logprob
 
@@ -77,6 +79,9 @@ class FitResult:
     notes: tuple = ()
     training: TrainingData | None = field(default=None, repr=False)
     options: dict = field(default_factory=dict)
+    #: Column layout (:class:`~ordwidgets.core.extended.ModelLayout`) of a fit with
+    #: per-threshold or scale effects; ``None`` for a parallel fit.
+    layout: object = field(default=None, repr=False)
 
     # ---- parameters ------------------------------------------------------------------------
     @property
@@ -140,17 +145,20 @@ class FitResult:
         """Design matrix (no intercept) for ``newdata`` (default: the training rows)."""
         if newdata is None:
             return self._training().X
-        if self.model_spec is None or not self.coef_names:
+        cols = self.coef_names if self.layout is None else self.layout.columns
+        if self.model_spec is None or not cols:
             return np.empty((len(newdata), 0))
         mm = self.model_spec.get_model_matrix(newdata, na_action="ignore")
-        return mm[list(self.coef_names)].to_numpy(float)
+        return mm[list(cols)].to_numpy(float)
 
     def linear_predictor(self, newdata=None) -> np.ndarray:
-        """``eta = x'beta`` for each row."""
+        """``eta = x'beta`` for each row (parallel location effects only)."""
         X = self.design(newdata)
+        if self.layout is not None:
+            return location_predictor(self.layout, self.params, X)
         return X @ self.params[self.n_thresholds :] if X.shape[1] else np.zeros(len(X))
 
-    def predict(self, newdata=None, kind="probabilities") -> pd.DataFrame | pd.Series:
+    def predict(self, newdata=None, kind="probabilities", *, level=None) -> pd.DataFrame | pd.Series:
         """Predictions for ``newdata`` (default: the training rows).
 
         Parameters
@@ -159,12 +167,22 @@ class FitResult:
             Category probabilities (one column per level), cumulative probabilities
             ``P(Y <= j)`` (one column per level), the linear predictor ``x'beta`` or the most
             likely level.
+        level : float, optional
+            With ``kind`` "probabilities" or "cumulative": add delta-method intervals of this
+            coverage, computed on the logit scale so they stay in ``[0, 1]``.  The frame then
+            has a column MultiIndex ``(part, level)``, ``part`` in "estimate", "lower",
+            "upper" (see :func:`ordwidgets.core.effects.prediction_intervals`).
         """
+        if level is not None:
+            return prediction_intervals(self, newdata, kind=kind, level=level)
         eta = self.linear_predictor(newdata)
         index = self._index(newdata, len(eta))
         if kind == "latent":
             return pd.Series(eta, index=index, name="latent")
-        probs = category_probabilities(self.link, self.params[: self.n_thresholds], eta)
+        if self.layout is None:
+            probs = category_probabilities(self.link, self.params[: self.n_thresholds], eta)
+        else:
+            probs = probabilities_at(self, self.design(newdata))
         cols = [str(v) for v in self.levels]
         if kind == "probabilities":
             return pd.DataFrame(probs, index=index, columns=cols)
@@ -191,6 +209,8 @@ class FitResult:
         -------
         lower, upper : ndarray, shape (n_rows,)
         """
+        if self.layout is not None:
+            return error_bounds_of(self, thresholds, coefficients)
         tr = self._training()
         theta = self.params[: self.n_thresholds] if thresholds is None else np.asarray(thresholds, float)
         beta = self.params[self.n_thresholds :] if coefficients is None else np.asarray(coefficients, float)
@@ -207,6 +227,33 @@ class FitResult:
         tr = self._training()
         logp = interval_logprob(self.link, *self.error_bounds(thresholds, coefficients))
         return float(logp.sum() if tr.weights is None else tr.weights @ logp)
+
+    # ---- inference (see ordwidgets.core.inference, .potest, .effects) ----------------------
+    @property
+    def crossing(self) -> tuple:
+        """Threshold pairs whose fitted cumulative probabilities cross inside the data range.
+
+        Empty (false) for parallel fits and when nothing crosses.
+        """
+        return tuple(self.options.get("crossing", ()))
+
+    def intervals(self, level=0.95, *, method="wald") -> pd.DataFrame:
+        """Confidence intervals (``"wald"`` or ``"profile"``) for every parameter."""
+        from .inference import intervals
+
+        return intervals(self, level=level, method=method)
+
+    def proportional_odds_test(self) -> pd.DataFrame:
+        """Likelihood-ratio and Brant tests of parallel effects, per predictor and overall."""
+        from .potest import proportional_odds_test
+
+        return proportional_odds_test(self)
+
+    def average_marginal_effects(self) -> pd.DataFrame:
+        """Average marginal effects on each category probability, with delta-method SEs."""
+        from .effects import average_marginal_effects
+
+        return average_marginal_effects(self)
 
     def _training(self) -> TrainingData:
         if self.training is None:
