@@ -20,6 +20,11 @@ from .inference import compare, compare_links  # noqa: E402
 
 __all__ += ["compare", "compare_links", "CrossingError", "CrossingWarning", "ComparisonError"]
 
-from .dask_fit import fit_dask  # noqa: E402  (imports Dask only when a Dask frame is fitted)
+from .residual_report import ResidualDiagnostics, residual_diagnostics  # noqa: E402
+from .residuals import (ReferenceDistribution, SurrogateDraws, draw_surrogate,  # noqa: E402
+                        probability_scale_residuals, reference_distribution, surrogate_residuals)
 
-__all__ += ["fit_dask"]
+__all__ += [
+    "surrogate_residuals", "probability_scale_residuals", "draw_surrogate", "SurrogateDraws",
+    "reference_distribution", "ReferenceDistribution", "residual_diagnostics", "ResidualDiagnostics",
+]

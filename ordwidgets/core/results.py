@@ -23,30 +23,13 @@ SIGN_CONVENTION = (
 
 @dataclass(frozen=True, eq=False)
 class TrainingData:
-    """The rows a result was fitted on (original order, after cleaning).
-
-    For a fit on a Dask frame these are a reproducible sample of the rows fitted:
-    ``sampled_from`` is then the number of rows the sample was drawn from (``None`` when
-    the rows are all the rows fitted), and everything computed from them without new data
-    (``predict()``, ``error_bounds()``, ``loglik_at()``, residuals) refers to the sample.
-    """
+    """The rows a result was fitted on (original order, after cleaning)."""
 
     X: np.ndarray
     y: np.ndarray
     weights: np.ndarray | None
     index: pd.Index
     frame: pd.DataFrame | None = None
-    sampled_from: int | None = None
-
-    @property
-    def is_sample(self) -> bool:
-        return self.sampled_from is not None
-
-    def describe(self) -> str:
-        """``"all 1,000 rows"`` or ``"a sample of 20,000 of 5,000,000 rows"`` (for display)."""
-        if self.sampled_from is None:
-            return f"all {len(self.y):,} rows"
-        return f"a sample of {len(self.y):,} of {self.sampled_from:,} rows"
 
 
 @dataclass(frozen=True, eq=False)
@@ -219,14 +202,35 @@ class FitResult:
         return cuts[tr.y] - eta, cuts[tr.y + 1] - eta
 
     def loglik_at(self, thresholds=None, coefficients=None) -> float:
-        """Log-likelihood of the training rows at other parameter values (cheap, no refit).
-
-        For a Dask fit the training rows are the kept sample (``training.sampled_from``):
-        the value is the sample's log-likelihood, not comparable with ``loglik``.
-        """
+        """Log-likelihood of the training rows at other parameter values (cheap, no refit)."""
         tr = self._training()
         logp = interval_logprob(self.link, *self.error_bounds(thresholds, coefficients))
         return float(logp.sum() if tr.weights is None else tr.weights @ logp)
+
+    # ---- residuals (see ordwidgets.core.residuals and .residual_report) ---------------------
+    def surrogate_residuals(self, *, draws=1, seed=None, thresholds=None) -> np.ndarray:
+        """Surrogate residuals (Liu & Zhang 2018), shape (n_rows,) or (n_rows, draws).
+
+        See :func:`ordwidgets.core.residuals.surrogate_residuals`.
+        """
+        from .residuals import surrogate_residuals
+
+        return surrogate_residuals(self, draws=draws, seed=seed, thresholds=thresholds)
+
+    def probability_scale_residuals(self, *, thresholds=None) -> np.ndarray:
+        """Probability-scale residuals ``P(Y < y) - P(Y > y)`` (Li & Shepherd 2012)."""
+        from .residuals import probability_scale_residuals
+
+        return probability_scale_residuals(self, thresholds=thresholds)
+
+    def residual_diagnostics(self, **options):
+        """QQ points, binned trends, tests and display rows of the surrogate residuals.
+
+        See :func:`ordwidgets.core.residual_report.residual_diagnostics` for the options.
+        """
+        from .residual_report import residual_diagnostics
+
+        return residual_diagnostics(self, **options)
 
     # ---- inference (see ordwidgets.core.inference, .potest, .effects) ----------------------
     @property
@@ -269,13 +273,10 @@ class FitResult:
 
     # ---- display ----------------------------------------------------------------------------
     def facts(self) -> dict:
-        """Headline facts shown with the table (with the display sample of a Dask fit)."""
-        sample = {} if self.training is None or not self.training.is_sample else {
-            "rows shown": self.training.describe()}
+        """Headline facts shown with the table."""
         return {
             "link": f"{self.link.name} (latent {self.link.latent})",
             "rows": self.n_rows,
-            **sample,
             "n (weighted)": self.n_obs,
             "log-likelihood": self.loglik,
             "AIC": self.aic,
