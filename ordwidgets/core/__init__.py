@@ -15,11 +15,6 @@ __all__ = [
     "SeparationWarning",
 ]
 
-from .exceptions import ComparisonError, CrossingError, CrossingWarning  # noqa: E402
-from .inference import compare, compare_links  # noqa: E402
-
-__all__ += ["compare", "compare_links", "CrossingError", "CrossingWarning", "ComparisonError"]
-
 from .residual_report import ResidualDiagnostics, residual_diagnostics  # noqa: E402
 from .residuals import (ReferenceDistribution, SurrogateDraws, draw_surrogate,  # noqa: E402
                         probability_scale_residuals, reference_distribution, surrogate_residuals)
@@ -28,3 +23,12 @@ __all__ += [
     "surrogate_residuals", "probability_scale_residuals", "draw_surrogate", "SurrogateDraws",
     "reference_distribution", "ReferenceDistribution", "residual_diagnostics", "ResidualDiagnostics",
 ]
+
+from .exceptions import ComparisonError, CrossingError, CrossingWarning  # noqa: E402
+from .inference import compare, compare_links  # noqa: E402
+
+__all__ += ["compare", "compare_links", "CrossingError", "CrossingWarning", "ComparisonError"]
+
+from .dask_fit import fit_dask  # noqa: E402  (imports Dask only when a Dask frame is fitted)
+
+__all__ += ["fit_dask"]

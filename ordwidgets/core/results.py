@@ -23,13 +23,30 @@ SIGN_CONVENTION = (
 
 @dataclass(frozen=True, eq=False)
 class TrainingData:
-    """The rows a result was fitted on (original order, after cleaning)."""
+    """The rows a result was fitted on (original order, after cleaning).
+
+    For a fit on a Dask frame these are a reproducible sample of the rows fitted:
+    ``sampled_from`` is then the number of rows the sample was drawn from (``None`` when
+    the rows are all the rows fitted), and everything computed from them without new data
+    (``predict()``, ``error_bounds()``, ``loglik_at()``, residuals) refers to the sample.
+    """
 
     X: np.ndarray
     y: np.ndarray
     weights: np.ndarray | None
     index: pd.Index
     frame: pd.DataFrame | None = None
+    sampled_from: int | None = None
+
+    @property
+    def is_sample(self) -> bool:
+        return self.sampled_from is not None
+
+    def describe(self) -> str:
+        """``"all 1,000 rows"`` or ``"a sample of 20,000 of 5,000,000 rows"`` (for display)."""
+        if self.sampled_from is None:
+            return f"all {len(self.y):,} rows"
+        return f"a sample of {len(self.y):,} of {self.sampled_from:,} rows"
 
 
 @dataclass(frozen=True, eq=False)
@@ -202,7 +219,11 @@ class FitResult:
         return cuts[tr.y] - eta, cuts[tr.y + 1] - eta
 
     def loglik_at(self, thresholds=None, coefficients=None) -> float:
-        """Log-likelihood of the training rows at other parameter values (cheap, no refit)."""
+        """Log-likelihood of the training rows at other parameter values (cheap, no refit).
+
+        For a Dask fit the training rows are the kept sample (``training.sampled_from``):
+        the value is the sample's log-likelihood, not comparable with ``loglik``.
+        """
         tr = self._training()
         logp = interval_logprob(self.link, *self.error_bounds(thresholds, coefficients))
         return float(logp.sum() if tr.weights is None else tr.weights @ logp)
@@ -273,10 +294,13 @@ class FitResult:
 
     # ---- display ----------------------------------------------------------------------------
     def facts(self) -> dict:
-        """Headline facts shown with the table."""
+        """Headline facts shown with the table (with the display sample of a Dask fit)."""
+        sample = {} if self.training is None or not self.training.is_sample else {
+            "rows shown": self.training.describe()}
         return {
             "link": f"{self.link.name} (latent {self.link.latent})",
             "rows": self.n_rows,
+            **sample,
             "n (weighted)": self.n_obs,
             "log-likelihood": self.loglik,
             "AIC": self.aic,
