@@ -27,7 +27,7 @@ import numpy as np
 import pandas as pd
 import traitlets as tl
 
-from .core import FitResult, OrdinalDataError, fit as core_fit, link_names
+from .core import FitResult, OrdinalDataError, fit as core_fit, interval_probability, link_names
 from . import _spec
 
 __all__ = ["FitState", "CHANGE_KINDS"]
@@ -144,6 +144,32 @@ class FitState(tl.HasTraits):
     def eta_of(self, frame) -> np.ndarray:
         """Linear predictor ``x'beta`` of the rows of ``frame`` under the current fit."""
         return self.fit.linear_predictor(frame)
+
+    def cuts_of(self, frame):
+        """Standardised cut points at the shown thresholds for the rows of ``frame``.
+
+        ``P(Y <= j | x_i) = F(U[i, j])``: ``U = theta - x'beta`` for a parallel fit; fits
+        with non-parallel or scale effects use the core's per-threshold predictors and return
+        the row scales ``sigma`` (ones otherwise).
+
+        Returns
+        -------
+        eta, U, sigma : ndarray, shapes (n,), (n, J-1), (n,)
+        """
+        res, eta = self.fit, self.eta_of(frame)
+        if getattr(res, "layout", None) is None:
+            return eta, self.theta[None, :] - eta[:, None], np.ones(len(eta))
+        from .core.extended import cumulative_predictors
+
+        params = np.concatenate([self.theta, res.params[res.n_thresholds:]])
+        U, sigma = cumulative_predictors(res.layout, params, res.design(frame))
+        return eta, U, np.asarray(sigma, float) * np.ones(len(eta))
+
+    def probabilities(self, frame) -> np.ndarray:
+        """Category probabilities ``(n, J)`` of the rows of ``frame`` at the shown thresholds."""
+        _, U, _ = self.cuts_of(frame)
+        ends = np.full((len(U), 1), np.inf)
+        return interval_probability(self.fit.link, np.hstack([-ends, U]), np.hstack([U, ends]))
 
     # ---- validation (one place) --------------------------------------------------------------------
     @tl.validate("thresholds")

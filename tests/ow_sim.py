@@ -58,3 +58,19 @@ def html_values(widget):
 def data():
     """The simulated frame with hostile labels (shared by a module's tests)."""
     return simulate()
+
+
+@pytest.fixture
+def make_panel(data):
+    """Factory of panels on fresh states of the simulated data; closes them afterwards."""
+    import ordwidgets as ow
+
+    made = []
+
+    def make(cls, **state_kwargs):
+        made.append(cls(ow.FitState(data=data, formula=FORMULA, **state_kwargs)))
+        return made[-1]
+
+    yield make
+    for panel in made:
+        panel.close()

@@ -5,47 +5,27 @@ import pytest
 import ordwidgets as ow
 
 try:
-    from tests.ow_sim import FORMULA, data, manual_eta, scenario_rows
+    from tests.ow_checks import *  # noqa: F403 - fixtures, data and reference checks
 except ImportError:  # tests/ is not a package
-    from ow_sim import FORMULA, data, manual_eta, scenario_rows
+    from ow_checks import *  # noqa: F403
 
 
-@pytest.fixture
-def panel(data):
-    st = ow.FitState(data=data, formula=FORMULA)
-    p = ow.ThresholdPanel(st)
-    yield p
-    p.close()
-
-
-def check_marks(p):
-    """Every mark of the panel equals a fresh computation outside the widgets."""
-    st = p.state
-    eta = manual_eta(st.fit, scenario_rows(st))[0]
-    # reference: scipy.stats density of the link's latent distribution, shifted by eta
-    np.testing.assert_allclose(p.curve.y, st.fit.link.dist.pdf(p.curve.x - eta), rtol=1e-9, atol=1e-12)
-    np.testing.assert_allclose(p.regions.y, st.fit.link.dist.pdf(p.regions.x - eta), rtol=1e-9, atol=1e-12)
-    np.testing.assert_array_equal(p.rules.x[:, 0], st.theta)
-    # reference: the core's category probabilities at the shown thresholds
-    probs = ow.category_probabilities(st.fit.link, st.theta, [eta])[0]
-    assert list(p.labels.text) == [f"{q:.1%}" for q in probs]
-    assert [s.value for s in p.sliders] == list(st.thresholds)
-    assert f"{st.fit.loglik_at(thresholds=st.theta):.8g}" in p.readout.value
+panel = pytest.fixture(name="panel")(lambda make_panel: make_panel(ow.ThresholdPanel))
 
 
 def test_marks_follow_link_threshold_and_scenario(panel):
-    check_marks(panel)
+    check_threshold_panel(panel)
     st, before = panel.state, panel.curve.y.copy()
     st.link = "cauchit"
-    check_marks(panel)
+    check_threshold_panel(panel)
     assert not np.allclose(panel.curve.y, before)
     labels = list(panel.labels.text)
     st.set_threshold(1, st.theta[1] + 0.4)
-    check_marks(panel)
+    check_threshold_panel(panel)
     assert list(panel.labels.text) != labels and "edited" in panel.readout.value
     eta_before = panel.scenario_eta()
     st.scenario = {"dose": 2.5}
-    check_marks(panel)
+    check_threshold_panel(panel)
     assert panel.scenario_eta() != eta_before
 
 
@@ -55,7 +35,7 @@ def test_slider_edits_set_the_state_and_crossing_is_clamped(panel):
     assert st.thresholds[0] == panel.sliders[0].value
     panel.sliders[1].value = st.theta[2] + 3.0  # would cross threshold 3
     assert np.all(np.diff(st.theta) > 0) and panel.sliders[1].value == st.thresholds[1] < st.thresholds[2]
-    check_marks(panel)
+    check_threshold_panel(panel)
 
 
 def test_reset_button_restores_fitted(panel):
@@ -63,7 +43,7 @@ def test_reset_button_restores_fitted(panel):
     st.set_threshold(2, st.theta[2] + 1)
     panel.reset_button.click()
     assert not st.edited and st.lr_distance == 0
-    check_marks(panel)
+    check_threshold_panel(panel)
 
 
 def test_one_redraw_per_batched_action(panel, monkeypatch):

@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 
 from .._spec import grid_values
-from ..core import SIGN_CONVENTION, category_probabilities
+from ..core import SIGN_CONVENTION
 from ._common import PanelBase, category_colours, esc, figure_toolbar, fmt, html_table, make_figure, rule_xy
 
 __all__ = ["ProbabilityExplorer", "expected_score", "interval_bands"]
@@ -30,10 +30,10 @@ def interval_bands(res, frame, level=0.95):
     if "level" not in inspect.signature(res.predict).parameters:
         return None
     out = res.predict(frame, kind="probabilities", level=level)
-    lower, upper = getattr(out, "lower", None), getattr(out, "upper", None)
-    if lower is None or upper is None:
+    parts = out.columns.get_level_values(0) if out.columns.nlevels == 2 else ()
+    if "lower" not in parts or "upper" not in parts:
         return None
-    return np.asarray(lower, float), np.asarray(upper, float)
+    return out["lower"].to_numpy(float), out["upper"].to_numpy(float)
 
 
 class ProbabilityExplorer(PanelBase):
@@ -107,14 +107,13 @@ class ProbabilityExplorer(PanelBase):
         positions = np.arange(len(values), dtype=float) if categorical else np.asarray(values, float)
         return positions, values, categorical
 
-    def grid_eta(self):
-        """Linear predictor along the grid (cached until the fit, scenario or focus change)."""
+    def grid_frame(self):
+        """Rows along the grid (cached until the fit, scenario or focus change)."""
         st = self.state
         key = (st.fit, st.focus, tuple(sorted((k, str(v)) for k, v in st.scenario.items() if k != st.focus)))
         if self._cache[0] != key:
             positions, values, categorical = self.grid()
-            frame = st.scenario_frame(focus_values=values)
-            self._cache = (key, (positions, values, categorical, st.eta_of(frame), frame))
+            self._cache = (key, (positions, values, categorical, st.scenario_frame(focus_values=values)))
         return self._cache[1]
 
     # ---- curves ---------------------------------------------------------------------------------------
@@ -123,8 +122,8 @@ class ProbabilityExplorer(PanelBase):
         if not st.focus:
             self.note.value = "<i>no predictor in the model: nothing to explore</i>"
             return
-        positions, values, categorical, eta, frame = self.grid_eta()
-        probs = category_probabilities(st.fit.link, st.theta, eta)
+        positions, values, categorical, frame = self.grid_frame()
+        probs = st.probabilities(frame)
         colours = category_colours(probs.shape[1])
         stacked = self.view.value == "stacked"
         bands = None if stacked else self._bands(frame)
@@ -221,7 +220,7 @@ class ProbabilityExplorer(PanelBase):
         """Category probabilities of the baseline and the scenario, shape (2, J)."""
         st = self.state
         frame = pd.concat([st.scenario_frame("baseline"), st.scenario_frame("scenario")], ignore_index=True)
-        return category_probabilities(st.fit.link, st.theta, st.eta_of(frame))
+        return st.probabilities(frame)
 
     def _update_whatif(self):
         probs = self.whatif_probabilities()

@@ -127,13 +127,15 @@ class LinkSelector(PanelBase):
     def _update_po(self):
         available = hasattr(self.state.fit, "proportional_odds_test")
         for name, (*_, text) in self._rows.items():
-            if not available:
-                text.value = _UNAVAILABLE
-            elif name in self.state.dropped:
+            if name in self.state.dropped:
                 text.value = "<i>out of the model</i>"
+            elif not available:
+                text.value = _UNAVAILABLE
             else:
                 text.value = esc(self._match_po(name)) if self._po else "<i>testing...</i>"
 
     def _match_po(self, name):
-        hits = [v for k, v in self._po.items() if k == name or k.startswith((f"C({name})", f"{name}["))]
+        if name in self._po:
+            return self._po[name]
+        hits = [f"{k}: {v}" for k, v in self._po.items() if k.startswith((f"C({name})", f"{name}["))]
         return "; ".join(hits) if hits else "-"

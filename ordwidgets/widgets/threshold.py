@@ -5,7 +5,6 @@ import bqplot as bq
 import ipywidgets as w
 import numpy as np
 
-from ..core import category_probabilities
 from ._common import PanelBase, category_colours, esc, figure_toolbar, fmt, make_figure, rule_xy
 
 __all__ = ["ThresholdPanel", "latent_range"]
@@ -114,22 +113,38 @@ class ThresholdPanel(PanelBase):
                     self.sliders[i].value = value
         return moved
 
+    def scenario_cuts(self):
+        """``eta``, the scale ``sigma`` and the thresholds on the latent scale at the scenario.
+
+        For a parallel fit the latent thresholds are the shown ones; with non-parallel or
+        scale effects they are ``eta + sigma * U_j`` (the effective cut points of this case).
+        """
+        eta, U, sigma = self.state.cuts_of(self.state.scenario_frame())
+        if getattr(self.state.fit, "layout", None) is None:
+            return float(eta[0]), 1.0, self.state.theta
+        return float(eta[0]), float(sigma[0]), eta[0] + sigma[0] * U[0]
+
     def scenario_eta(self) -> float:
         """Linear predictor of the current scenario."""
-        return float(self.state.eta_of(self.state.scenario_frame())[0])
+        return self.scenario_cuts()[0]
 
     def _update_curve(self):
-        link, theta, eta = self.state.fit.link, self.state.theta, self.scenario_eta()
-        density = link.pdf(self._grid - eta)
+        link = self.state.fit.link
+        eta, sigma, theta = self.scenario_cuts()
+
+        def density(t):
+            return link.pdf((t - eta) / sigma) / sigma
+
         cuts = np.clip(np.concatenate([[self.xs.min], theta, [self.xs.max]]), self.xs.min, self.xs.max)
-        xs = np.array([np.linspace(a, b, _REGION_POINTS) for a, b in zip(cuts[:-1], cuts[1:])])
-        probs = category_probabilities(link, theta, [eta])[0]
-        peak = float(density.max())
+        xs = np.array([np.linspace(a, b, _REGION_POINTS) for a, b in zip(cuts[:-1], np.maximum(cuts[1:], cuts[:-1]))])
+        probs = self.state.probabilities(self.state.scenario_frame())[0]
+        curve = density(self._grid)
+        peak = float(curve.max())
         rx, ry = rule_xy(theta)
         with self.curve.hold_sync(), self.regions.hold_sync(), self.rules.hold_sync(), self.labels.hold_sync():
             self.ys.max = 1.18 * peak
-            self.curve.x, self.curve.y = self._grid, density
-            self.regions.x, self.regions.y = xs, link.pdf(xs - eta)
+            self.curve.x, self.curve.y = self._grid, curve
+            self.regions.x, self.regions.y = xs, density(xs)
             self.rules.x, self.rules.y = rx, ry
             self.labels.x, self.labels.y = xs.mean(axis=1), np.full(len(probs), 1.08 * peak)
             self.labels.text = [f"{p:.1%}" for p in probs]

@@ -1,0 +1,69 @@
+"""ProbabilityExplorer against the core's probabilities and a hand-built linear predictor."""
+import numpy as np
+import pytest
+
+import ordwidgets as ow
+
+try:
+    from tests.ow_checks import *  # noqa: F403 - fixtures, data and reference checks
+except ImportError:  # tests/ is not a package
+    from ow_checks import *  # noqa: F403
+
+
+panel = pytest.fixture(name="panel")(lambda make_panel: make_panel(ow.ProbabilityExplorer))
+
+
+def test_follows_link_thresholds_scenario_and_focus(panel):
+    st = panel.state
+    check_explorer(panel)
+    snapshots = [np.asarray(panel.bands.y).copy()]
+    for action in (lambda: setattr(st, "link", "probit"), lambda: st.set_threshold(0, st.theta[0] + 0.5),
+                   lambda: setattr(st, "scenario", {"dose": 1.5})):
+        action()
+        check_explorer(panel)
+        assert not np.allclose(panel.bands.y, snapshots[-1])
+        snapshots.append(np.asarray(panel.bands.y).copy())
+    st.focus = "group"
+    check_explorer(panel)
+    assert np.asarray(panel.bands.y).shape[1] == 3 and set(panel.x_axis.tick_labels.values()) == set(st.data.group)
+
+
+def test_editors_set_scenario_and_baseline(panel):
+    st = panel.state
+    panel.editors["age"].value = 25.0
+    assert st.scenario["age"] == 25.0 and st.baseline["age"] != 25.0
+    panel.target.value = "baseline"
+    assert panel.editors["age"].value == st.baseline["age"]
+    panel.editors["group"].value = "plain"
+    assert st.baseline["group"] == "plain"
+    check_explorer(panel)
+    panel.copy_button.click()
+    assert st.baseline == st.scenario
+
+
+def test_focus_dropdown_sets_state(panel):
+    panel.focus_dropdown.value = "dose"
+    assert panel.state.focus == "dose"
+    check_explorer(panel)
+
+
+def test_lines_view_reports_missing_intervals(panel):
+    panel.view.value = "lines"
+    assert panel.lines.visible and not panel.bands.visible
+    has_intervals = "level" in __import__("inspect").signature(panel.state.fit.predict).parameters
+    assert panel.ci.visible == has_intervals or "not available" in panel.note.value
+
+
+def test_dropping_the_focus_moves_it(panel):
+    st = panel.state
+    st.focus = "dose"
+    st.dropped = ("dose",)
+    assert st.focus in st.included and "dose" not in panel.editors
+    check_explorer(panel)
+
+
+def test_whatif_escapes_labels(panel):
+    st = panel.state
+    st.scenario = {"group": "<script>alert(1)</script>"}
+    assert "<script>" not in panel.whatif.value and "&lt;script&gt;" in panel.whatif.value
+    assert "<i>low</i>" not in panel.whatif.value and "&lt;i&gt;low&lt;/i&gt;" in panel.whatif.value

@@ -1,0 +1,76 @@
+"""LinkSelector: the link table equals direct fits; model controls refit through the state."""
+from concurrent.futures import ThreadPoolExecutor
+
+import numpy as np
+import pytest
+
+import ordwidgets as ow
+
+try:
+    from tests.ow_checks import *  # noqa: F403 - fixtures, data and reference checks
+except ImportError:  # tests/ is not a package
+    from ow_checks import *  # noqa: F403
+
+
+panel = pytest.fixture(name="panel")(lambda make_panel: make_panel(ow.LinkSelector))
+
+
+def test_link_table_equals_direct_fits(panel, data):
+    rows = {r["link"]: r for r in panel.state.link_table}
+    assert set(rows) == set(ow.link_names())
+    for name in ow.link_names():
+        ref = ow.fit(FORMULA, data, link=name)  # reference: the core fitter, one link at a time
+        assert rows[name]["loglik"] == pytest.approx(ref.loglik, abs=1e-7)
+        assert f"{ref.aic:.8g}" in panel.table.value
+    assert "\u25b6 logit" in panel.table.value
+
+
+def test_dropdown_switches_link_and_marks_it(panel):
+    panel.dropdown.value = "loglog"
+    assert panel.state.fit.link.name == "loglog"
+    assert "\u25b6 loglog" in panel.table.value and "\u25b6 logit" not in panel.table.value
+
+
+def test_model_controls_drop_and_restore(panel, data):
+    inc = panel._rows["dose"][0]
+    inc.value = False
+    ref = ow.fit("rating ~ age + C(group)", data)  # reference: direct fit without dose
+    np.testing.assert_allclose(panel.state.fit.params, ref.params, atol=1e-8)
+    assert panel._rows["dose"][1].disabled and "out of the model" in panel._rows["dose"][3].value
+    rows = {r["link"]: r for r in panel.state.link_table}
+    assert rows["logit"]["loglik"] == pytest.approx(ref.loglik, abs=1e-7)
+    inc.value = True
+    assert "dose" in panel.state.fit.coef_names
+
+
+def test_non_parallel_box_refits_or_says_not_available(panel, data):
+    box = panel._rows["dose"][1]
+    if box.disabled:  # a core without non-parallel effects: the state says so plainly
+        panel.state.nonparallel = ("dose",)
+        assert "not available" in panel.state.error and "not available" in panel.message.value
+        return
+    box.value = True
+    ref = ow.fit(FORMULA, data, nonparallel=["dose"])  # reference: direct fit with the same option
+    np.testing.assert_allclose(panel.state.fit.params, ref.params, atol=1e-7)
+    assert panel.state.nonparallel == ("dose",) and panel._rows["dose"][1].value
+
+
+def test_po_figures_beside_each_predictor(panel):
+    texts = {name: row[3].value for name, row in panel._rows.items()}
+    if not hasattr(panel.state.fit, "proportional_odds_test"):
+        assert all("not available" in t for t in texts.values())
+        return
+    table = panel.state.fit.proportional_odds_test()  # reference: the core's test table
+    assert f"{table.loc['dose', 'statistic']:.4g}" in texts["dose"]
+    assert "C(group)[T.&lt;script&gt;alert(1)&lt;/script&gt;]: chi2" in texts["group"]
+
+
+def test_background_link_table_shows_busy_then_rows(data):
+    st = ow.FitState(data=data, formula=FORMULA, executor=ThreadPoolExecutor(1))
+    seen = []
+    st.observe(lambda c: seen.append(c["new"]), names="busy")
+    p = ow.LinkSelector(st)
+    st.executor.shutdown(wait=True)
+    assert any("comparing links" in b for b in seen) and st.busy == ""
+    assert len(st.link_table) == 5 and "loglik" in p.table.value
+    p.close()
