@@ -1,0 +1,166 @@
+"""Wald and profile intervals, likelihood-ratio comparisons and link comparison."""
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import optimize, stats
+
+import ordwidgets as ow
+
+from . import reference as R
+from . import reference_extended as RX
+
+
+def small_data(n=150, seed=0, link="logit"):
+    X, y = R.simulate(n, [0.8, -0.5], [-0.7, 0.6], link=link, seed=seed)
+    return pd.DataFrame({"y": y, "x": X[:, 0], "v": X[:, 1]}), X, y
+
+
+def test_wald_interval_is_estimate_plus_minus_z_se():
+    # Definition of the Wald interval; z from scipy.stats.norm.
+    df, _, _ = small_data()
+    res = ow.fit("y ~ x + v", df)
+    ci = res.intervals(0.9)
+    z = stats.norm.ppf(0.95)
+    np.testing.assert_allclose(ci["lower"], res.params - z * res.std_errors, rtol=1e-12)
+    np.testing.assert_allclose(ci["upper"], res.params + z * res.std_errors, rtol=1e-12)
+    assert list(ci.index) == list(res.std_errors.index)
+
+
+def _independent_profile_end(negll, est, k, m, sign, se, level):
+    """Profile end by scipy: BFGS over the other parameters, brentq on the deviance.
+
+    The thresholds (the first ``m`` parameters, never the profiled one) are optimised as a
+    first value plus log increments so BFGS cannot leave the ordered region.
+    """
+    def full(t, z):
+        theta = np.cumsum(np.concatenate([z[:1], np.exp(z[1:m])]))
+        return np.insert(np.concatenate([theta, z[m:]]), k, t)
+
+    start = np.delete(est, k)
+    start = np.concatenate([start[:1], np.log(np.diff(start[:m])), start[m:]])
+    llmax, cut = -negll(est), stats.chi2.ppf(level, 1)
+
+    def deviance(t):
+        z = optimize.minimize(lambda v: negll(full(t, v)), start, method="BFGS", options={"gtol": 1e-9}).x
+        return 2 * (llmax + negll(full(t, z))) - cut
+
+    return optimize.brentq(deviance, est[k], est[k] + sign * 6 * se, xtol=1e-10)
+
+
+def test_profile_interval_matches_an_independent_scipy_profile():
+    # Reference: the published log-likelihood (tests/reference.py), profiled with BFGS and
+    # Brent's root finder from scipy; nothing of ordwidgets' optimiser is used.
+    df, X, y = small_data(n=120, seed=1)
+    res = ow.fit("y ~ x + v", df)
+    ci = res.intervals(0.95, method="profile")
+    negll = lambda p: -R.loglik(p, X, y, 2, "logit")  # noqa: E731
+    for k in (2, 3):
+        ends = [_independent_profile_end(negll, res.params, k, 2, s, res.std_errors.iloc[k], 0.95) for s in (-1, 1)]
+        assert ci.iloc[k].to_numpy() == pytest.approx(ends, abs=1e-5)
+
+
+def test_profile_interval_of_a_scale_effect_matches_an_independent_profile():
+    df, X, y = small_data(n=150, seed=2)
+    res = ow.fit("y ~ x", df, scale_by=["v"])
+    ci = res.intervals(0.9, method="profile")
+    Xl, Z = df[["x"]].to_numpy(float), df[["v"]].to_numpy(float)
+    negll = lambda p: -RX.loglik(p, Xl, np.empty((len(y), 0)), Z, y, 2, "logit")  # noqa: E731
+    k, se = 3, res.std_errors.iloc[3]
+    expect = [_independent_profile_end(negll, res.params, k, 2, s, se, 0.9) for s in (-1, 1)]
+    assert ci.loc["scale: v"].to_numpy() == pytest.approx(expect, abs=1e-5)
+
+
+def _binomial_lr_interval(c, n, level):
+    """Likelihood-ratio interval of a binomial proportion (Wilks), by brentq."""
+    ph = c / n
+    cut = stats.chi2.ppf(level, 1)
+    dev = lambda p: 2 * (c * np.log(ph / p) + (n - c) * np.log((1 - ph) / (1 - p))) - cut  # noqa: E731
+    return optimize.brentq(dev, 1e-12, ph), optimize.brentq(dev, ph, 1 - 1e-12)
+
+
+@pytest.mark.parametrize("link", ["logit", "probit", "cloglog"])
+def test_thresholds_only_profile_is_the_inverse_link_of_the_binomial_lr_interval(link):
+    # Closed form: with no predictors the profile of theta_j is the binomial profile of the
+    # cumulative proportion P(Y <= j) (the multinomial factorises), mapped through F^{-1}.
+    counts = [30, 50, 20]
+    df = pd.DataFrame({"y": np.repeat([0, 1, 2], counts)})
+    res = ow.fit("y ~ 1", df, link=link)
+    ci = res.intervals(0.95, method="profile")
+    F = R.DISTS[link]
+    for j, c in enumerate(np.cumsum(counts)[:-1]):
+        lo, hi = _binomial_lr_interval(c, 100, 0.95)
+        assert ci.iloc[j].to_numpy() == pytest.approx(F.ppf([lo, hi]), abs=1e-7)
+
+
+def test_profile_end_the_likelihood_never_reaches_is_infinite():
+    # Quasi-separation: all rows with g = 1 are in the top category, so the likelihood keeps
+    # rising with the effect of g and the upper end does not exist.
+    rng = np.random.default_rng(3)
+    g = np.repeat([0, 1], [80, 20])
+    y = np.where(g == 1, 2, rng.choice(3, 100))
+    df = pd.DataFrame({"y": y, "g": g, "x": rng.normal(size=100)})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        res = ow.fit("y ~ g + x", df)
+    ci = res.intervals(method="profile")
+    assert ci.loc["g", "upper"] == np.inf and np.isfinite(ci.loc["g", "lower"])
+    assert np.all(np.isfinite(ci.loc["x"]))
+
+
+def test_compare_matches_chi2_on_independent_logliks():
+    # Statistic from the reference fits' log-likelihoods; p-value from scipy.stats.chi2.
+    df, X, y = small_data(seed=4)
+    small, large = ow.fit("y ~ x", df), ow.fit("y ~ x + v", df)
+    _, ll_small = R.fit(X[:, :1], y, "logit")
+    _, ll_large = R.fit(X, y, "logit")
+    table = ow.compare(small, large)
+    stat = 2 * (ll_large - ll_small)
+    assert table.loc["larger", "statistic"] == pytest.approx(stat, abs=1e-6)
+    assert table.loc["larger", "df"] == 1
+    assert table.loc["larger", "p_value"] == pytest.approx(stats.chi2.sf(stat, 1), rel=1e-5)
+    npar = ow.fit("y ~ x + v", df, nonparallel=["v"])
+    assert ow.compare(large, npar).loc["larger", "df"] == 1  # three levels: one extra cut
+
+
+def test_compare_refuses_non_nested_and_different_rows():
+    df, _, _ = small_data(seed=5)
+    a, b = ow.fit("y ~ x", df), ow.fit("y ~ v", df)
+    with pytest.raises(ow.ComparisonError, match="not nested.*x"):
+        ow.compare(a, b)
+    with pytest.raises(ow.ComparisonError, match="different rows"):
+        ow.compare(a, ow.fit("y ~ x + v", df.iloc[:-5]))
+    with pytest.raises(ow.ComparisonError, match="different links"):
+        ow.compare(a, ow.fit("y ~ x + v", df, link="probit"))
+    big = ow.fit("y ~ x + v", df, nonparallel=["x"])
+    with pytest.raises(ow.ComparisonError, match="freer in the smaller fit: x"):
+        ow.compare(big, ow.fit("y ~ x + v", df, scale_by=["v"]))
+    with pytest.raises(ow.ComparisonError, match="no extra parameters"):
+        ow.compare(a, ow.fit("y ~ x", df))
+    shifted = df.assign(x=df.x + 1.0)
+    with pytest.raises(ow.ComparisonError, match="different values: x"):
+        ow.compare(a, ow.fit("y ~ x + v", shifted))
+
+
+def test_compare_links_ranks_by_aic_with_the_fits_loglik():
+    df, _, _ = small_data(seed=6, link="probit")
+    table = ow.compare_links("y ~ x + v", df)
+    assert set(table.index) == set(ow.link_names()) and table.index.name == "link"
+    assert table["aic"].is_monotonic_increasing and table["converged"].all()
+    for name in table.index:
+        assert table.loc[name, "loglik"] == pytest.approx(ow.fit("y ~ x + v", df, link=name).loglik, rel=1e-12)
+    sub = ow.compare_links("y ~ x + v", df, link=["logit", "probit"], nonparallel=["x"])
+    assert list(sub["n_params"]) == [2 + 2 + 1, 2 + 2 + 1]  # two cuts, x at each cut, v
+
+
+def test_bad_levels_and_methods_are_refused():
+    df, _, _ = small_data(n=60, seed=7)
+    res = ow.fit("y ~ x", df)
+    for bad in (0, 1, 1.5, -0.1, True):
+        with pytest.raises(ValueError, match="level must be strictly between 0 and 1"):
+            res.intervals(bad)
+        with pytest.raises(ValueError, match="level must be strictly between 0 and 1"):
+            res.predict(df, level=bad)
+    with pytest.raises(ValueError, match="'wald' or 'profile'"):
+        res.intervals(method="bootstrap")
