@@ -145,7 +145,9 @@ def proportional_odds_test(res):
     if res.n_thresholds < 2:
         raise ValueError("with two response levels every effect is trivially parallel: nothing to test")
     rows = {layout.columns[i]: _lr_row(res, layout.with_nonparallel([i])) for i in layout.location}
-    rows[OVERALL] = _lr_row(res, layout.with_nonparallel(list(layout.location)))
+    single = len(layout.location) == 1
+    rows[OVERALL] = dict(next(iter(rows.values()))) if single else _lr_row(
+        res, layout.with_nonparallel(list(layout.location)))
     lr = pd.DataFrame.from_dict(rows, orient="index")
     order = ["statistic", "df", "p_value", "max_prob_change", "mean_prob_change", "note"]
     lr = lr.reindex(columns=order)
