@@ -45,6 +45,7 @@ __all__ = [
 
 _TINY = 1e-290          # below this, a probability is handled in log space
 _NEWTON_STEPS = 60
+_SYMMETRIC = ("logit", "probit", "cauchit")   # latent errors symmetric about zero
 
 
 # ---- reference distributions ---------------------------------------------------------------
@@ -169,6 +170,9 @@ def _invert(link, below, above):
     probability underflows are redone in log space by the caller.
     """
     pick = below <= above
+    if link.name in _SYMMETRIC:  # S^{-1}(q) = -F^{-1}(q): one quantile call for all rows
+        t = link._ppf(np.clip(np.where(pick, below, above), _TINY, 0.5))
+        return np.where(pick, t, -t)
     lo = link._ppf(np.clip(below, _TINY, 0.5))
     hi = link._isf(np.clip(above, _TINY, 0.5))
     return np.where(pick, lo, hi)
