@@ -200,7 +200,7 @@ class FitState(tl.HasTraits):
     @tl.validate("selection")
     def _valid_selection(self, proposal):
         rows = np.unique(np.asarray(proposal["value"], dtype=np.int64))
-        n = self.fit.n_rows if self.fit is not None else 0
+        n = self.fit.n_training if self.fit is not None else 0
         if rows.size and (rows[0] < 0 or rows[-1] >= n):
             raise tl.TraitError(f"selection holds row positions outside 0..{n - 1}")
         return tuple(int(r) for r in rows)
@@ -305,7 +305,7 @@ class FitState(tl.HasTraits):
         self.baseline = _spec.complete_scenario(self.baseline, self.data, self.formula, lenient=True)
         if self.focus not in self.included:
             self.focus = self.included[0] if self.included else ""
-        self.selection = tuple(r for r in self.selection if r < res.n_rows)
+        self.selection = tuple(r for r in self.selection if r < res.n_training)
         self._update_loglik()
 
     def _restore_good(self, message):
@@ -315,9 +315,17 @@ class FitState(tl.HasTraits):
         self.error = message
 
     def _update_loglik(self):
-        ll = self.fit.loglik if not self.edited else self.fit.loglik_at(thresholds=self.theta)
+        res = self.fit
+        fitted = self.fitted_loglik
+        ll = fitted if not self.edited else res.loglik_at(thresholds=self.theta)
         self.loglik = float(ll)
-        self.lr_distance = float(max(2.0 * (self.fit.loglik - ll), 0.0))
+        self.lr_distance = float(max(2.0 * (fitted - ll), 0.0))
+
+    @property
+    def fitted_loglik(self) -> float:
+        """Fitted log-likelihood on the rows :attr:`loglik` uses (the display sample of a Dask fit)."""
+        res = self.fit
+        return res.loglik if res.n_training == res.n_rows else res.loglik_at()
 
     # ---- long work off the interaction path -------------------------------------------------------------
     def run_long(self, label, work, done):

@@ -65,6 +65,11 @@ def test_dask_fit_equals_in_memory_fit(frame, scheduler, link):
     _same_fit(ow.fit(FORMULA, ddf, link=link), ow.fit(FORMULA, frame, link=link))
 
 
+def test_categorical_predictor_keeps_its_category_order(frame):
+    df = frame.assign(group=pd.Categorical(frame.group, categories=["c", "a", "b"]))
+    _same_fit(ow.fit(FORMULA, dd.from_pandas(df, npartitions=3)), ow.fit(FORMULA, df))
+
+
 def test_weighted_dask_fit_equals_in_memory_fit(frame):
     df = frame.assign(w=np.arange(len(frame)) % 3)
     ddf = dd.from_pandas(df, npartitions=3)
@@ -135,6 +140,17 @@ def test_unordered_response_and_unknown_levels_refused(frame):
         ow.fit(FORMULA, ddf, levels=["low", "mid", "high"])
 
 
+def _logistic_loglik(rd, rows, thresholds):
+    """Log-likelihood of ``rows`` written out with scipy.stats.logistic (no ordwidgets code)."""
+    theta = np.r_[-np.inf, np.asarray(thresholds, float), np.inf]
+    b = rd.coefficients
+    eta = b["age"] * rows.age + b["dose"] * rows.dose + b["C(group)[T.b]"] * (rows.group == "b") \
+        + b["C(group)[T.c]"] * (rows.group == "c")
+    y = rows["rating"].cat.codes.to_numpy()
+    F = stats.logistic.cdf
+    return np.log(F(theta[y + 1] - eta) - F(theta[y] - eta)).sum()
+
+
 def test_sample_is_reproducible_and_drives_row_level_methods(frame):
     ddf = dd.from_pandas(frame, npartitions=4)
     rd = fit_dask(FORMULA, ddf, sample_rows=100, seed=7)
@@ -146,14 +162,7 @@ def test_sample_is_reproducible_and_drives_row_level_methods(frame):
     assert tr.index.equals(again.training.index) and not tr.index.equals(other.training.index)
     rows = frame.loc[tr.index]  # the sample holds real rows with their own response
     np.testing.assert_array_equal(tr.y, rows["rating"].cat.codes.to_numpy())
-    # log-likelihood of the sample rows, written out with scipy.stats.logistic
-    theta = np.r_[-np.inf, rd.thresholds.to_numpy(), np.inf]
-    b = rd.coefficients
-    eta = b["age"] * rows.age + b["dose"] * rows.dose + b["C(group)[T.b]"] * (rows.group == "b") \
-        + b["C(group)[T.c]"] * (rows.group == "c")
-    F = stats.logistic.cdf
-    expected = np.log(F(theta[tr.y + 1] - eta) - F(theta[tr.y] - eta)).sum()
-    np.testing.assert_allclose(rd.loglik_at(), expected, rtol=1e-10)
+    np.testing.assert_allclose(rd.loglik_at(), _logistic_loglik(rd, rows, rd.thresholds), rtol=1e-10)
     assert rd.predict().shape == (100, 4)
     assert fit_dask(FORMULA, ddf, keep_data=False).training is None
 
@@ -210,3 +219,22 @@ def test_core_imports_without_dask():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
     assert out.returncode == 0, out.stderr
     assert "pip install 'ordwidgets[dask]'" in out.stdout
+
+
+def test_dashboard_shows_a_dask_fit_through_its_sample(frame):
+    from ordwidgets.widgets import dashboard
+
+    rd = fit_dask(FORMULA, dd.from_pandas(frame, npartitions=3), sample_rows=200)
+    board = dashboard(rd, background=False)
+    try:
+        assert "panels show a sample of 200 of 600 rows" in board.header.value
+        assert "showing 200 of 200 points" in board.residual_panel.count.value
+        rows = frame.loc[rd.training.index]
+        shown = rd.thresholds.to_numpy() + [0.0, 0.3, 0.0]
+        board.state.thresholds = tuple(shown)
+        # the likelihood-ratio distance compares the edit with the fit on the same (sample) rows
+        expected = 2 * (_logistic_loglik(rd, rows, rd.thresholds) - _logistic_loglik(rd, rows, shown))
+        np.testing.assert_allclose(board.state.lr_distance, expected, rtol=1e-9)
+        assert "on a sample of 200 of 600 rows" in board.threshold_panel.readout.value
+    finally:
+        board.close()

@@ -246,18 +246,15 @@ def _template(head, categories):
     """A few rows in which every categorical predictor takes each of its values at least once."""
     if not len(head):
         raise OrdinalDataError("no usable rows: every row has a missing value")
-    found = {c: _values_of(head[c], parts) for c, parts in categories.items()}
+    found = {c: pd.unique(np.concatenate(parts)) for c, parts in categories.items()}
     size = max([len(head)] + [len(v) for v in found.values()])
     frame = head.iloc[np.arange(size) % len(head)].reset_index(drop=True)
     for c, vals in found.items():
-        frame[c] = pd.array(np.resize(np.asarray(vals, dtype=object), size), dtype=head[c].dtype)
+        dtype = head[c].dtype
+        if isinstance(dtype, pd.CategoricalDtype):  # the categories of every partition, in order
+            dtype = pd.CategoricalDtype(vals, ordered=dtype.ordered)
+        frame[c] = pd.array(np.resize(vals, size), dtype=dtype)
     return frame
-
-
-def _values_of(column, parts):
-    if isinstance(column.dtype, pd.CategoricalDtype):
-        return list(column.dtype.categories)
-    return list(pd.unique(np.concatenate([np.asarray(p, dtype=object) for p in parts])))
 
 
 def _combine_moments(parts, p):
@@ -280,5 +277,7 @@ def _sample(parts, size, population):
     y = np.concatenate([q["y"] for q in s])[pick]
     w = None if s[0]["w"] is None else np.concatenate([q["w"] for q in s])[pick]
     frame = pd.concat([q["frame"] for q in s]).iloc[pick]
+    if not frame.index.is_unique:  # e.g. Parquet files each numbered from 0
+        frame = frame.reset_index(drop=True)
     whole = len(y) == population
     return TrainingData(np.asfortranarray(X), y, w, frame.index, frame=frame, sampled_from=None if whole else population)

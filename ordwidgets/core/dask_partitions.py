@@ -99,10 +99,18 @@ def scan_partition(part, plan):
         counts = values.value_counts(sort=False, dropna=True)
     else:
         counts = pd.Series(w, index=values.index).groupby(values, observed=False, sort=False).sum()
-    cats = {c: pd.unique(rows[c]) for c in plan.categorical}
+    cats = {c: _levels_in(rows[c]) for c in plan.categorical}
     nonzero = len(rows) if w is None else int(np.count_nonzero(w))
     return {"tally": tally, "values": counts, "rows": len(rows), "nonzero": nonzero, "categories": cats,
             "head": rows.head(HEAD_ROWS)}
+
+
+def _levels_in(column):
+    """Values a categorical predictor takes: all categories of a Categorical (as in memory),
+    else the distinct values present."""
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        return np.asarray(column.dtype.categories, dtype=object)
+    return np.asarray(pd.unique(column), dtype=object)
 
 
 def response_codes(values, plan):

@@ -147,8 +147,8 @@ def _resolve_x(res, x):
         raise KeyError(f"x={x!r} is not a design column; choose one of {', '.join(columns) or '(none)'} "
                        "or pass an array with one value per training row")
     values = np.asarray(getattr(x, "to_numpy", lambda: x)(), dtype=float)
-    if values.shape != (res.n_rows,):
-        raise ValueError(f"x must have one value per training row ({res.n_rows}), got shape {values.shape}")
+    if values.shape != (res.n_training,):
+        raise ValueError(f"x must have one value per training row ({res.n_training}), got shape {values.shape}")
     return str(getattr(x, "name", None) or "x"), values
 
 

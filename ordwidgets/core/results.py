@@ -93,6 +93,11 @@ class FitResult:
         return len(self.params)
 
     @property
+    def n_training(self) -> int:
+        """Rows held in ``training``: ``n_rows``, or the display sample of a Dask fit."""
+        return self.n_rows if self.training is None else len(self.training.y)
+
+    @property
     def names(self) -> list:
         """Names of all parameters: thresholds first, then effects."""
         return list(self.threshold_names) + list(self.coef_names)

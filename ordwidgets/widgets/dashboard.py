@@ -50,10 +50,11 @@ class Dashboard(w.VBox):
     def _update_header(self, change=None):
         st, res = self.state, self.state.fit
         edited = " &middot; <i>thresholds edited</i>" if st.edited else ""
+        shown = "" if res.n_training == res.n_rows else f" (panels show {esc(res.training.describe())})"
         self.header.value = (
             f"<div style='font-size:115%'><b>Cumulative link model</b> &middot; {esc(st.model_formula)} "
             f"&middot; link <b>{esc(res.link.name)}</b> ({esc(res.link.latent)} latent error) &middot; "
-            f"n = {res.n_rows:,} rows{edited}</div>"
+            f"n = {res.n_rows:,} rows{shown}{edited}</div>"
             f"<div style='font-size:90%'>{esc(SIGN_CONVENTION)}</div>"
             f"<div style='font-size:90%;color:#8a5a00'>{esc(CAUTION)}</div>")
         self.status.value = f"<span style='color:#777;font-size:85%'>updates: {st.updates}</span>"

@@ -108,7 +108,7 @@ class ResidualPanel(PanelBase):
             self.seed.value, self.draws.value = self.state.residual_seed, self.state.residual_draws
         res = self.state.fit
         self._eta = res.linear_predictor()
-        self._shown = self.tools[1].display_rows(res.n_rows, max_points=MAX_POINTS, seed=0)
+        self._shown = self.tools[1].display_rows(res.n_training, max_points=MAX_POINTS, seed=0)
 
     def _update_residuals(self):
         st = self.state
@@ -165,9 +165,12 @@ class ResidualPanel(PanelBase):
         rows = [[name, fmt(s, 4), fmt(p, 3)] for name, s, p in tests]
         rows += [[f"{m['summary']}: observed / expected", f"{fmt(m['observed'], 4)} / {fmt(m['expected'], 4)}", ""]
                  for _, m in moments.iterrows()]
-        n = self.state.fit.n_rows
-        self.count.value = (f"showing {len(self._shown):,} of {n:,} points (reproducible sample); "
-                            f"statistics use all {n:,} rows. {esc(self.draw.description)}.")
+        res = self.state.fit
+        n, kept = res.n_rows, res.n_training
+        scope = f"statistics use all {n:,} rows" if kept == n else \
+            f"residual checks use {res.training.describe()} (the estimates use all {n:,})"
+        self.count.value = (f"showing {len(self._shown):,} of {kept:,} points (reproducible sample); "
+                            f"{scope}. {esc(self.draw.description)}.")
         self.summary.value = html_table(["check", "statistic", "p-value"], rows)
 
     # ---- brushing and selection -----------------------------------------------------------------------

@@ -152,6 +152,8 @@ class ThresholdPanel(PanelBase):
     def _update_readout(self):
         st = self.state
         edited = " <i>(edited)</i>" if st.edited else ""
+        res = st.fit
+        rows = "" if res.n_training == res.n_rows else f" (on {esc(res.training.describe())})"
         self.readout.value = (
             f"log-likelihood at shown thresholds <b>{fmt(st.loglik, 8)}</b> &middot; fitted "
-            f"{fmt(st.fit.loglik, 8)} &middot; LR distance <b>{fmt(st.lr_distance, 4)}</b>{edited}")
+            f"{fmt(st.fitted_loglik, 8)} &middot; LR distance <b>{fmt(st.lr_distance, 4)}</b>{rows}{edited}")
