@@ -110,6 +110,10 @@ def test_underflowing_intervals_are_solved_in_log_space():
     t = sample_truncated("probit", -np.inf, -40.0, u)
     assert np.allclose(special.log_ndtr(t), np.log(u) + special.log_ndtr(-40.0), rtol=1e-10)
     assert np.all(t <= -40.0)
+    # Gumbel-min upper tail: S(t) = exp(-e^t) underflows beyond t ~ 6.6; S(t) = (1 - u) S(7)
+    # solves to t = log(e^7 - log1p(-u)) (closed form of the truncated inverse).
+    got = sample_truncated("cloglog", 7.0, np.inf, u)
+    assert np.allclose(got, np.log(np.exp(7.0) - np.log1p(-u)), rtol=1e-12)
 
 
 def test_far_tail_rows_of_a_fit_give_finite_residuals():

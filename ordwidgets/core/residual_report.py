@@ -184,11 +184,11 @@ def _test_table(sur, ordered, axes, alpha):
     for name, axis in axes.items():
         rows.append(("trend", name, "F-test on x and x^2", *axis.f_test(v)))
         rows.append(("spread", name, "F-test of |residual| on x and x^2", *axis.f_test(np.abs(v))))
-    table = pd.DataFrame(rows, columns=TEST_COLUMNS[:5])
-    table["flagged"] = table["p_value"] < alpha
-    table["message"] = [_message(t, a, p, f, sur.reference) for t, a, p, f in
-                        zip(table["test"], table["against"], table["p_value"], table["flagged"])]
-    return table
+    test, against, method, statistic, p_value = (np.array(c) for c in zip(*rows))
+    flagged = p_value.astype(float) < alpha
+    message = [_message(*row, sur.reference) for row in zip(test, against, p_value, flagged)]
+    columns = (test, against, method, statistic.astype(float), p_value.astype(float), flagged, message)
+    return pd.DataFrame(dict(zip(TEST_COLUMNS, columns)))
 
 
 def _message(test, against, p, flagged, reference):
