@@ -185,3 +185,10 @@ def test_unknown_variable_and_wrong_length_are_refused(correct):
         correct.residual_diagnostics(x="nope")
     with pytest.raises(ValueError, match="one value per training row"):
         correct.residual_diagnostics(x=np.zeros(10))
+
+
+@pytest.mark.parametrize("option", [{"bins": 0}, {"bins": 2.5}, {"quantiles": 0}, {"max_points": -1},
+                                    {"level": 1.0}, {"alpha": 0}, {"level": "0.9"}])
+def test_bad_options_are_refused(correct, option):
+    with pytest.raises(ValueError, match=next(iter(option))):
+        correct.residual_diagnostics(**option)

@@ -151,12 +151,18 @@ def test_result_without_training_data_is_refused():
         res.surrogate_residuals()
     with pytest.raises(ValueError, match="keep_data"):
         res.probability_scale_residuals()
+    with pytest.raises(ValueError, match="keep_data"):
+        res.residual_diagnostics()
 
 
-def test_decreasing_edited_thresholds_are_refused():
+@pytest.mark.parametrize("edited, words", [([1.0, 0.0, 2.0], "increasing"), ([0.0, 0.0, 1.0], "increasing"),
+                                           ([0.0, np.nan, 1.0], "finite"), ([0.0, 1.0], "3 values")])
+def test_bad_edited_thresholds_are_refused(edited, words):
     res = fit_simulated("logit", n=300)
-    with pytest.raises(ValueError, match="increasing"):
-        res.surrogate_residuals(thresholds=[1.0, 0.0, 2.0])
+    with pytest.raises(ValueError, match=words):
+        res.surrogate_residuals(thresholds=edited)
+    with pytest.raises(ValueError, match=words):
+        res.probability_scale_residuals(thresholds=edited)
 
 
 # ---- Li & Shepherd (2012): the probability-scale residual ---------------------------------------

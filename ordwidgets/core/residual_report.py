@@ -116,6 +116,7 @@ def residual_diagnostics(res, *, x=None, thresholds=None, draws=1, seed=None, bi
     -------
     ResidualDiagnostics
     """
+    _check_options(bins=bins, quantiles=quantiles, max_points=max_points, level=level, alpha=alpha)
     sur = draw_surrogate(res, draws=draws, seed=seed, thresholds=thresholds)
     weights = res.training.weights
     fitted = res.linear_predictor()
@@ -132,6 +133,15 @@ def residual_diagnostics(res, *, x=None, thresholds=None, draws=1, seed=None, bi
         moments=moment_table(sur.residuals, sur.reference),
         rows=display_rows(len(fitted), max_points=max_points, seed=display_seed),
     )
+
+
+def _check_options(*, level, alpha, **counts):
+    for name, value in counts.items():
+        if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, np.integer)) or value < 1:
+            raise ValueError(f"{name} must be a whole number of at least 1, got {value!r}")
+    for name, value in (("level", level), ("alpha", alpha)):
+        if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, float)) or not 0 < value < 1:
+            raise ValueError(f"{name} must lie strictly between 0 and 1, got {value!r}")
 
 
 def _resolve_x(res, x):

@@ -265,7 +265,7 @@ def draw_surrogate(res, *, draws=1, seed=None, thresholds=None) -> SurrogateDraw
     SurrogateDraws
     """
     draws = _check_draws(draws)
-    lower, upper = res.error_bounds(thresholds=thresholds)
+    lower, upper = res.error_bounds(thresholds=_check_thresholds(res, thresholds))
     u = np.random.default_rng(seed).random((len(lower), draws))
     kind = surrogate_kind(res)
     ref = reference_distribution(res.link, kind)
@@ -303,7 +303,7 @@ def probability_scale_residuals(res, *, thresholds=None) -> np.ndarray:
         Values in ``[-1, 1]`` (open interval for interior probabilities), mean zero under a
         correctly specified model.
     """
-    lower, upper = res.error_bounds(thresholds=thresholds)
+    lower, upper = res.error_bounds(thresholds=_check_thresholds(res, thresholds))
     return res.link.cdf(lower) - res.link.sf(upper)
 
 
@@ -320,6 +320,18 @@ def _check_draws(draws) -> int:
     return int(draws)
 
 
+def _check_thresholds(res, thresholds):
+    """Edited thresholds must be finite, strictly increasing and one per cut of the fit."""
+    if thresholds is None:
+        return None
+    theta = np.asarray(thresholds, dtype=float)
+    if theta.shape != (res.n_thresholds,):
+        raise ValueError(f"thresholds must hold {res.n_thresholds} values, got shape {theta.shape}")
+    if not np.all(np.isfinite(theta)) or np.any(np.diff(theta) <= 0):
+        raise ValueError(f"thresholds must be finite and strictly increasing, got {theta.tolist()}")
+    return theta
+
+
 def _check_ordered(lower, upper):
     if np.any(lower > upper):
-        raise ValueError("thresholds must be increasing: some category intervals are empty")
+        raise ValueError("some category intervals are empty: the latent bounds are not ordered")
