@@ -14,10 +14,11 @@ probability-scale residuals of non-parallel fits.
 * distance: Kolmogorov-Smirnov distance of the residuals from ``G`` (Kolmogorov 1933;
   the exact null distribution :data:`scipy.stats.kstwo` up to 10,000 rows, the asymptotic
   :data:`scipy.stats.kstwobign` above, where the exact one costs a tenth of a second and
-  differs negligibly).  The fitted
-  parameters are estimated, which makes the p-value conservative.
-* trend: least-squares F-test of ``v`` on a predictor and its square; a U-shape (omitted
-  curvature) or a slope shows as a small p-value.
+  differs negligibly).  The fitted parameters are estimated, which makes the p-value
+  conservative.
+* trend: least-squares F-test of ``v`` on a predictor and its square (the nested-model
+  F-test; common practice, no source); a U-shape (omitted curvature) or a slope shows as a
+  small p-value.
 * spread: the same F-test on ``|v|`` (in the manner of Glejser 1969, J. Amer. Statist.
   Assoc. 64:316-323); a spread that changes with the predictor (heteroscedasticity) shows
   as a small p-value.
