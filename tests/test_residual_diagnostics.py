@@ -192,3 +192,12 @@ def test_unknown_variable_and_wrong_length_are_refused(correct):
 def test_bad_options_are_refused(correct, option):
     with pytest.raises(ValueError, match=next(iter(option))):
         correct.residual_diagnostics(**option)
+
+
+def test_a_variable_changed_in_place_is_prepared_again(correct):
+    """The per-fit cache of prepared variables must notice new values (our own rule)."""
+    w = np.random.default_rng(17).normal(size=N)
+    first = correct.residual_diagnostics(x=w, seed=18).versus_x
+    w *= 10.0
+    second = correct.residual_diagnostics(x=w, seed=18).versus_x
+    assert np.allclose(second["center"], 10.0 * first["center"])

@@ -182,7 +182,7 @@ def _axes(res, fitted, x_name, x_values, bins):
     for name, values in variables.items():
         hit = cache.get((name, bins))
         if hit is None or not np.array_equal(hit[0], values):
-            hit = (values, Axis.of(values, bins=bins, weights=res.training.weights))
+            hit = (values.copy(), Axis.of(values, bins=bins, weights=res.training.weights))
             cache[(name, bins)] = hit
         axes[name] = hit[1]
     return axes
