@@ -201,3 +201,18 @@ def test_a_variable_changed_in_place_is_prepared_again(correct):
     w *= 10.0
     second = correct.residual_diagnostics(x=w, seed=18).versus_x
     assert np.allclose(second["center"], 10.0 * first["center"])
+
+
+def test_trend_and_spread_tests_hold_their_size_for_an_unrelated_variable():
+    """Under a correct model surrogate residuals are independent of any variable unrelated to
+    the response (Liu & Zhang 2018), so p-values below 0.05 should occur 5% of the time."""
+    res = ow.fit("y ~ x + z", latent_frame(2000, 19))
+    rng = np.random.default_rng(19)
+    ref = reference_distribution("logit")
+    below = np.zeros(2)
+    for seed in range(500):
+        v = ref.cdf(res.surrogate_residuals(seed=seed)) - 0.5
+        w = rng.normal(size=2000)
+        below += [trend_test(w, v)[1] < 0.05, spread_test(w, v)[1] < 0.05]
+    # Binomial(500, 0.05): mean 25, sd 4.9; the bounds are more than three sd away
+    assert np.all((below >= 9) & (below <= 42)), below
