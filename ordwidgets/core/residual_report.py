@@ -36,7 +36,8 @@ class ResidualDiagnostics:
         What the residuals follow under a correct model.
     residuals : ndarray, shape (n_rows, draws)
     fitted : ndarray, shape (n_rows,)
-        Fitted linear predictor ``eta = x'beta`` of the training rows.
+        Fitted linear predictor ``eta = x'beta`` of the training rows (for non-parallel fits
+        the parallel part only, as :meth:`FitResult.linear_predictor` gives it).
     x_name : str or None
     x : ndarray, shape (n_rows,), or None
         The chosen variable for the second trend plot.
@@ -91,10 +92,10 @@ def residual_diagnostics(res, *, x=None, thresholds=None, draws=1, seed=None, bi
     res : FitResult
         A fit that kept its training data.
     x : str or array_like, optional
-        Variable for the second trend plot: a design column name (a column of ``res.training.X``), a column
-        of the training frame when the result keeps one, or an array with one value per
-        training row (for example a candidate predictor left out of the model).  It is also
-        tested for trend and spread.
+        Variable for the second trend plot: the name of a design column (a column of
+        ``res.training.X``) or of a column of the training frame when the result keeps one,
+        or an array / Series with one value per training row (for example a candidate
+        predictor left out of the model).  It is also tested for trend and spread.
     thresholds : array_like, optional
         Edited thresholds (the residuals follow them; the fitted effects are kept).
     draws : int
