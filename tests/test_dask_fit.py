@@ -158,6 +158,7 @@ def test_sample_is_reproducible_and_drives_row_level_methods(frame):
     other = fit_dask(FORMULA, ddf, sample_rows=100, seed=8)
     tr = rd.training
     assert (len(tr.y), tr.sampled_from, rd.n_rows) == (100, 600, 600)
+    assert list(tr.frame.columns) == ["rating", "age", "dose", "group"]  # only the columns used are read
     assert rd.facts()["rows shown"] == "a sample of 100 of 600 rows"
     assert tr.index.equals(again.training.index) and not tr.index.equals(other.training.index)
     rows = frame.loc[tr.index]  # the sample holds real rows with their own response

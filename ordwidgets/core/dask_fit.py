@@ -155,25 +155,32 @@ def fit_dask(formula, data, *, link="logit", weights=None, levels=None, max_iter
                          "fit a pandas DataFrame (or a sample) for the extended model")
     if weights is not None and not isinstance(weights, str):
         raise OrdinalDataError("for a Dask frame weights= must name a column of the frame")
+    _require_dask()
     lk = get_link(link)
-    runner = PartitionRunner(data)
+    plan, rhs = _plan(formula, data, weights)
+    used = list(dict.fromkeys([plan.response, *plan.columns, *([weights] if weights else [])]))
+    runner = PartitionRunner(data[used])  # only these columns are read
     show = progress_for(progress, callback, prefix=f"ordwidgets fit on {runner.n_partitions} partitions · ")
     try:
-        return _fit(formula, data, runner, show, lk, weights, levels, max_iter, tol,
-                    sample_rows if keep_data else 0, seed)
+        return _fit(formula, rhs, plan, runner, show, lk, levels, max_iter, tol, sample_rows if keep_data else 0, seed)
     except KeyboardInterrupt:
         show.show("interrupted; no result was made")
         raise
 
 
-def _fit(formula, data, runner, show, lk, weights, levels, max_iter, tol, sample_rows, seed):
-    from .fitting import _maximise, _result, check_enough_rows
-
+def _plan(formula, data, weights):
     response, rhs = split_formula(formula)
     if response not in data.columns:
         raise OrdinalDataError(f"response column {response!r} is not in the data")
+    if weights is not None and weights not in data.columns:
+        raise OrdinalDataError(f"weights column {weights!r} is not in the data")
     columns = _required_columns(rhs, data)
-    plan = PartitionPlan(response, tuple(columns), weights, categorical=_categorical(data._meta, columns))
+    return PartitionPlan(response, tuple(columns), weights, categorical=_categorical(data._meta, columns)), rhs
+
+
+def _fit(formula, rhs, plan, runner, show, lk, levels, max_iter, tol, sample_rows, seed):
+    from .fitting import _maximise, _result, check_enough_rows
+
     show.show("pass 1: checking rows and learning levels")
     plan, counts, scan, notes = _learn_levels(runner, plan, levels, rhs)
     m = len(counts) - 1
@@ -188,9 +195,9 @@ def _fit(formula, data, runner, show, lk, weights, levels, max_iter, tol, sample
     fitted = _maximise(design, lk, m, max_iter, tol, show, formula)
     training = _sample(moments, sample_rows, scan["rows"]) if sample_rows else None
     prep = PreparedData(np.empty((0, len(plan.names))), np.empty(0, np.intp), None, plan.levels_kept,
-                        plan.names, response, rhs, plan.spec, pd.RangeIndex(0), notes)
+                        plan.names, plan.response, rhs, plan.spec, pd.RangeIndex(0), notes)
     result = _result(prep, lk, fitted, plan.mean, plan.sd, formula=formula, n_obs=float(counts.sum()),
-                     n_rows=scan["rows"], training=training, options=_options(weights, levels, runner, sample_rows, seed))
+                     n_rows=scan["rows"], training=training, options=_options(plan.weights, levels, runner, sample_rows, seed))
     show.show(f"done: {result.message}, log-likelihood {result.loglik:.8g}")
     return result
 
