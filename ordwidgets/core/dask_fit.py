@@ -185,15 +185,16 @@ def _fit(formula, rhs, plan, runner, show, lk, levels, max_iter, tol, sample_row
     plan, counts, scan, notes = _learn_levels(runner, plan, levels, rhs)
     m = len(counts) - 1
     show.show("pass 2: column moments and sample")
-    moments = runner.map(moment_partition, plan, sample_rows, seed, numbered=True)
-    check_enough_rows(scan["nonzero"], m + len(plan.names))
+    moments = runner.map(moment_partition, plan, _cutoff(sample_rows, scan["rows"]), seed, numbered=True)
     mean, cov = _combine_moments(moments, len(plan.names))
+    training = _sample(moments, sample_rows, scan["rows"]) if sample_rows else None
+    del moments  # the sample candidates are not needed any more
+    check_enough_rows(scan["nonzero"], m + len(plan.names))
     check_collinear_moments(plan.names, mean, cov)
     sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
     plan = replace(plan, mean=mean, sd=np.where(sd > 0, sd, 1.0))
     design = PartitionedDesign(runner, plan, counts)
     fitted = _maximise(design, lk, m, max_iter, tol, show, formula)
-    training = _sample(moments, sample_rows, scan["rows"]) if sample_rows else None
     prep = PreparedData(np.empty((0, len(plan.names))), np.empty(0, np.intp), None, plan.levels_kept,
                         plan.names, plan.response, rhs, plan.spec, pd.RangeIndex(0), notes)
     result = _result(prep, lk, fitted, plan.mean, plan.sd, formula=formula, n_obs=float(counts.sum()),
@@ -262,6 +263,13 @@ def _template(head, categories):
             dtype = pd.CategoricalDtype(vals, ordered=dtype.ordered)
         frame[c] = pd.array(np.resize(vals, size), dtype=dtype)
     return frame
+
+
+def _cutoff(size, rows):
+    """Key below which a row is a sample candidate: ``size`` expected rows plus five
+    binomial standard deviations, so fewer than ``size`` candidates is vanishingly rare
+    (then the sample is all of them)."""
+    return 0.0 if size <= 0 or rows == 0 else min(1.0, (size + 5.0 * np.sqrt(size) + 10.0) / rows)
 
 
 def _combine_moments(parts, p):

@@ -146,12 +146,14 @@ def design_arrays(part, plan):
     return np.asfortranarray(mm[list(plan.names)].to_numpy(float)), y, w, rows
 
 
-def moment_partition(part, number, plan, sample_rows, seed):
+def moment_partition(part, number, plan, cutoff, seed):
     """Second pass: weighted moments of the design and this partition's sample candidates.
 
     Every usable row gets a uniform key from a generator seeded with ``(seed, number)``;
-    the ``sample_rows`` smallest keys of all partitions form the sample, so the sample is
-    reproducible for the same data, partitioning and seed.
+    rows with a key below ``cutoff`` are candidates, and the smallest keys of all
+    partitions form the sample (reproducible for the same data, partitioning and seed).
+    With the cutoff a little above ``sample size / rows`` the candidates stay few whatever
+    the number of partitions.
 
     Returns
     -------
@@ -165,9 +167,9 @@ def moment_partition(part, number, plan, sample_rows, seed):
     mean = (wt @ X) / total if total > 0 else np.zeros(X.shape[1])
     Xc = X - mean
     keys = np.random.default_rng([seed, number]).random(len(y))
-    pick = np.arange(len(y)) if len(y) <= sample_rows else np.sort(np.argpartition(keys, sample_rows)[:sample_rows])
-    sample = {"key": keys[pick], "part": np.full(len(pick), number), "pos": pick, "X": X[pick],
-              "y": y[pick], "w": None if w is None else w[pick], "frame": rows.iloc[pick]}
+    pick = np.flatnonzero(keys < cutoff)
+    sample = {"key": keys[pick], "X": X[pick], "y": y[pick], "w": None if w is None else w[pick],
+              "frame": rows.iloc[pick]}
     return {"weight": total, "mean": mean, "m2": Xc.T @ (Xc * wt[:, None]), "sample": sample}
 
 
