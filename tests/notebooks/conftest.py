@@ -6,8 +6,7 @@ import shutil
 
 import pytest
 
-from nbharness import (CHROMIUM_ARGS, NOTEBOOK_DIR, RENDER_MS, PageWatch, kernel_env, local_only,
-                       unavailable, voila_server)
+from nbharness import CHROMIUM_ARGS, NOTEBOOK_DIR, kernel_env, rendered_page, unavailable, voila_server
 
 
 @pytest.fixture(scope="session", autouse=True)
@@ -64,15 +63,9 @@ def open_page(chromium):
     """``open_page(url)`` → :class:`PageWatch` once Voila has rendered every cell."""
     contexts = []
 
-    def _open(url):
-        ctx = chromium.new_context(viewport={"width": 1400, "height": 1000}, device_scale_factor=1)
+    def _open(url, height=2400, scale=1.0):
+        ctx, watch = rendered_page(chromium, url, height=height, scale=scale)
         contexts.append(ctx)
-        page = ctx.new_page()
-        page.set_default_timeout(60_000)
-        ctx.route("**/*", local_only)
-        watch = PageWatch(page)
-        page.goto(url, wait_until="domcontentloaded", timeout=RENDER_MS)
-        page.wait_for_selector("#rendered_cells", state="visible", timeout=RENDER_MS)
         return watch
 
     yield _open

@@ -56,11 +56,12 @@ def free_port() -> int:
         return s.getsockname()[1]
 
 
-def _wait_http(url, proc, seconds):
+def _wait_http(url, proc, seconds, log_path):
     deadline = time.monotonic() + seconds
     while time.monotonic() < deadline:
         if proc.poll() is not None:
-            raise RuntimeError(f"voila exited early with code {proc.returncode}")
+            tail = Path(log_path).read_text(errors="replace")[-2000:]
+            raise RuntimeError(f"voila exited early with code {proc.returncode}:\n{tail}")
         try:
             with urllib.request.urlopen(url, timeout=2):
                 return
@@ -87,16 +88,18 @@ def voila_server(target, log_path):
     Yields the base URL.  Flags as in the project's notes: no browser, fixed port,
     ``port_retries=0`` so Voila never moves to another port silently.
     """
+    target = Path(target).resolve()
     port = free_port()
     cmd = [sys.executable, "-m", "voila", str(target), "--no-browser", f"--port={port}",
-           "--Voila.ip=127.0.0.1", "--Voila.port_retries=0", "--VoilaExecutor.timeout=240"]
+           "--Voila.ip=127.0.0.1", "--Voila.port_retries=0", "--VoilaExecutor.timeout=240",
+           "--VoilaConfiguration.show_tracebacks=True"]
     with open(log_path, "wb") as log:
-        proc = subprocess.Popen(cmd, cwd=Path(target).parent if Path(target).is_file() else target,
+        proc = subprocess.Popen(cmd, cwd=target.parent if target.is_file() else target,
                                 env=kernel_env(), stdout=log, stderr=subprocess.STDOUT,
                                 start_new_session=True)
     try:
         base = f"http://127.0.0.1:{port}"
-        _wait_http(base + "/", proc, SERVER_START_SECONDS)
+        _wait_http(base + "/", proc, SERVER_START_SECONDS, log_path)
         yield base
     finally:
         _stop(proc)
@@ -144,3 +147,19 @@ def stderr_outputs(nb):
     return [(i, out.get("text", out.get("evalue", ""))) for i, cell in enumerate(nb.cells)
             if cell.cell_type == "code" for out in cell.get("outputs", [])
             if out.get("name") == "stderr" or out.get("output_type") == "error"]
+
+
+def rendered_page(browser, url, *, height=1000, scale=1.0):
+    """Open ``url`` in a fresh context (local requests only); wait until Voila has rendered.
+
+    ``scale`` is the device pixel ratio (below 1 for small overview screenshots).  Returns the
+    context (close it when done) and a :class:`PageWatch` of its page.
+    """
+    ctx = browser.new_context(viewport={"width": 1280, "height": height}, device_scale_factor=scale)
+    ctx.route("**/*", local_only)
+    page = ctx.new_page()
+    page.set_default_timeout(60_000)
+    watch = PageWatch(page)
+    page.goto(url, wait_until="domcontentloaded", timeout=RENDER_MS)
+    page.wait_for_selector("#rendered_cells", state="visible", timeout=RENDER_MS)
+    return ctx, watch

@@ -8,6 +8,7 @@ innerHTML, as noted for ipywidgets' HTML widget).
 import nbformat
 import pytest
 
+from browser_actions import error_outputs, wait_figures
 from nbharness import voila_server
 
 pytestmark = pytest.mark.browser
@@ -27,7 +28,7 @@ res = ow.fit("rating ~ x", frame)
 res
 '''
 
-DASHBOARD = "ow.dashboard(res) if hasattr(ow, 'dashboard') else None"
+DASHBOARD = "ow.dashboard(res, data=frame)"
 
 
 @pytest.fixture(scope="module")
@@ -45,6 +46,8 @@ def test_level_labels_with_markup_show_as_text(open_page, markup_url):
     watch = open_page(markup_url)
     page = watch.page
     page.wait_for_selector(".ow-fit-result", timeout=120_000)
+    assert error_outputs(page) == []
+    wait_figures(page, ".ow-dashboard", 4)
     text = page.inner_text("#rendered_cells")
     for label in HOSTILE:
         assert label in text, label

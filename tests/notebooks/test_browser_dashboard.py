@@ -1,0 +1,94 @@
+"""The tour's dashboard driven in a real browser (Voila + Chromium), as a person would use it.
+
+Reference for each check is what the dashboard promises its user (docs/user_guide.md): a
+threshold slider moved with the keyboard (the WAI-ARIA slider pattern: arrow keys step the
+value) redraws the latent plot and the log-likelihood readout; choosing another link redraws
+the probability explorer; dragging a box over residual points lists those rows.  Each
+interaction waits for the status counter, so the kernel has really processed it.
+Screenshots for the user guide are saved along the way.
+"""
+import pytest
+
+from browser_actions import (path_data, screenshot, updates, wait_figures, wait_paths_change,
+                             wait_settled, wait_updates_above)
+from nbharness import rendered_page
+
+pytestmark = pytest.mark.browser
+
+DENSITY = ".ow-threshold-panel .ow-density-figure path"
+EXPLORER = ".ow-explorer .ow-explorer-figure path"
+
+
+@pytest.fixture(scope="module")
+def tour(chromium, voila_notebooks):
+    """One rendered tour page shared by the interaction tests (one kernel, one dashboard)."""
+    ctx, watch = rendered_page(chromium, f"{voila_notebooks}/voila/render/tour.ipynb", height=2400)
+    page = watch.page
+    wait_figures(page, ".ow-dashboard", 4)
+    yield watch
+    ctx.close()
+
+
+def test_dashboard_renders_every_panel(tour):
+    page = tour.page
+    for css in ["ow-threshold-panel", "ow-link-selector", "ow-explorer", "ow-residual-panel", "ow-status"]:
+        assert page.locator(f".ow-dashboard .{css}").count() == 1, css
+    assert updates(page) >= 1  # the initial build was processed and counted
+    assert tour.page_errors == []
+
+
+def test_keyboard_on_a_threshold_slider_redraws_density_and_loglik(tour):
+    page = tour.page
+    before_paths = path_data(page, DENSITY)
+    before_text = page.locator(".ow-loglik-readout").inner_text()
+    count = updates(page)
+    handle = page.locator(".ow-threshold-slider .noUi-handle").first
+    handle.focus()
+    for _ in range(5):
+        page.keyboard.press("ArrowRight")
+    wait_updates_above(page, count)
+    wait_paths_change(page, DENSITY, before_paths)
+    page.wait_for_function(
+        "([sel, t]) => document.querySelector(sel).innerText !== t",
+        arg=[".ow-loglik-readout", before_text], timeout=60_000)
+    for _ in range(40):  # a larger, visible edit for the user guide's picture
+        page.keyboard.press("PageUp")
+    wait_settled(page)
+    screenshot(page.locator(".ow-threshold-panel"), "thresholds")
+    assert tour.page_errors == []
+
+
+def test_switching_the_link_redraws_the_explorer(tour):
+    page = tour.page
+    before = path_data(page, EXPLORER)
+    count = updates(page)
+    page.locator(".ow-link-dropdown select").select_option("cloglog")
+    wait_updates_above(page, count)
+    wait_paths_change(page, EXPLORER, before)
+    assert "cloglog" in page.locator(".ow-dashboard").inner_text()
+    screenshot(page.locator(".ow-link-selector"), "links")
+    screenshot(page.locator(".ow-explorer"), "explorer")
+    assert tour.page_errors == []
+
+
+def test_brushing_residuals_fills_the_selection_table(tour):
+    page = tour.page
+    table = page.locator(".ow-selection-table")
+    assert "selected rows" not in table.inner_text()
+    page.locator(".ow-residual-panel select").first.select_option(label="years")
+    page.wait_for_function("(sel) => document.querySelector(sel).textContent.includes('years')",
+                           arg=".ow-residual-figure text.axislabel", timeout=60_000)
+    count = updates(page)
+    area = page.locator(".ow-residual-figure rect.overlay").first.bounding_box()
+    # old trees with large residuals; start low so the figure's hover toolbar (top right) is not hit
+    page.mouse.move(area["x"] + area["width"] * 0.75, area["y"] + area["height"] * 0.42)
+    page.mouse.down()
+    page.mouse.move(area["x"] + area["width"] * 0.98, area["y"] + area["height"] * 0.12, steps=12)
+    page.mouse.up()
+    page.mouse.move(0, 0)
+    wait_updates_above(page, count)
+    page.wait_for_function("(sel) => /[1-9][0-9,]* selected rows/.test(document.querySelector(sel).innerText)",
+                           arg=".ow-selection-table", timeout=60_000)
+    assert table.locator("tr").count() > 1
+    screenshot(page.locator(".ow-residual-panel"), "residuals")
+    assert tour.page_errors == []
