@@ -199,3 +199,13 @@ def test_bad_names_and_unidentified_combinations_are_refused():
         warnings.simplefilter("error")
         res = ow.fit("y ~ x + g", df, nonparallel=["x"], scale_by=["x"])  # continuous: identified
     assert res.converged
+
+
+def test_separation_by_a_non_parallel_predictor_is_named_in_the_refusal():
+    # All g = 1 rows are in the top category: the per-threshold cuts of g = 1 run to -inf
+    # together and meet; the refusal says that these rows share one extreme category.
+    rng = np.random.default_rng(13)
+    g = np.repeat([0, 1], [80, 20])
+    df = pd.DataFrame({"y": np.where(g == 1, 2, rng.choice(3, 100)), "g": g, "x": rng.normal(size=100)})
+    with pytest.raises(ow.CrossingError, match="20 rows.*same extreme category.*separate"):
+        ow.fit("y ~ g + x", df, nonparallel=["g"])

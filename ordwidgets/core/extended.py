@@ -147,6 +147,14 @@ def cuts_from_arrays(layout, params, arrays):
     return (unscaled_cuts(layout, params, W) - eta[:, None]) / sigma[:, None], sigma
 
 
+def end_values(U, j):
+    """``U[i, j_i]``, with ``-inf`` where ``j_i < 0`` and ``inf`` where ``j_i >= m``."""
+    m = U.shape[1]
+    inside = (j >= 0) & (j < m)
+    picked = U[np.arange(len(U)), np.clip(j, 0, m - 1)]
+    return np.where(inside, picked, np.where(j < 0, -np.inf, np.inf))
+
+
 def end_jacobian(layout, params, arrays, U, sigma, j):
     """Derivatives ``du_i/dparams`` of the cut ``j_i`` of each row.
 
@@ -170,7 +178,7 @@ def end_jacobian(layout, params, arrays, U, sigma, j):
     inside = (j >= 0) & (j < m)
     jj = np.clip(j, 0, m - 1)
     rows = np.arange(n)
-    u = np.where(inside, U[rows, jj], np.where(j < 0, -np.inf, np.inf))
+    u = end_values(U, j)
     inv = np.where(inside, 1.0 / sigma, 0.0)
     tb, bb, gb, zb = layout.blocks()
     du = np.zeros((n, layout.n_params))
@@ -193,7 +201,7 @@ def _second_order_scale(H, du, u, c, Z, zb):
     H[:, zb] -= T
     H[zb, :] -= T.T
     cu = np.where(np.isfinite(u), u, 0.0) * c
-    H[zb, zb] -= Z.T @ (cu[:, None] * Z)
+    H[zb, zb] -= np.einsum("ni,nj->ij", Z, cu[:, None] * Z)  # BLAS is slow for tiny outputs
 
 
 @dataclass(eq=False)
@@ -250,14 +258,15 @@ class ExtendedDesign:
         """Log-likelihood and, for ``order`` 1 or 2, its gradient and Hessian."""
         link = get_link(link)
         U, sigma = self.cuts(params)
-        with np.errstate(over="ignore", invalid="ignore"):
-            up, du = end_jacobian(self.layout, params, self._arrays, U, sigma, self.y)
-            lo, dl = end_jacobian(self.layout, params, self._arrays, U, sigma, self.y - 1)
+        up, lo = end_values(U, self.y), end_values(U, self.y - 1)
         t = row_terms(link, upper=up, lower=lo, hessian=order >= 2)
         w = np.ones(len(self.y)) if self.weights is None else self.weights
         ll = float(w @ t["logp"]) if np.all(np.isfinite(t["logp"][w > 0])) else -np.inf
         if order == 0 or not np.isfinite(ll):
             return ll, None, None
+        with np.errstate(over="ignore", invalid="ignore"):
+            du = end_jacobian(self.layout, params, self._arrays, U, sigma, self.y)[1]
+            dl = end_jacobian(self.layout, params, self._arrays, U, sigma, self.y - 1)[1]
         gu, gl = _zero_missing(t["gu"]), _zero_missing(t["gl"])
         g = du.T @ (w * gu) + dl.T @ (w * gl)
         if order < 2:

@@ -167,12 +167,32 @@ def _raise_crossing(layout, design, params):
     t = layout.thresholds
     where = "; ".join(f"{t[j]} and {t[j + 1]} for {int(tight[:, j].sum())} rows"
                       for j in np.flatnonzero(tight.any(axis=0)))
+    cats = np.unique(design.y[tight.any(axis=1)])
+    separated = ""
+    if len(cats) == 1 and cats[0] in (0, layout.m):
+        separated = (" All rows where the cuts meet are in the same extreme category, so the "
+                     f"per-threshold effects of {cols} also separate the categories.")
     raise CrossingError(
         f"with per-threshold effects for {cols}, cumulative probabilities would have to cross "
         f"for observed rows (cuts meeting: {where or 'at the boundary'}); the likelihood has no "
         "maximum with valid probabilities. Use fewer non-parallel terms (nonparallel=[...]) "
-        "or a scale effect instead."
+        f"or a scale effect instead.{separated}"
     )
+
+
+def _interpret(design, outcome, layout, what, converged, message):
+    """Separation first (estimates running away), then crossing, then other failures."""
+    names = layout.param_names()[layout.m:]
+    if np.all(np.isfinite(outcome.hess)):
+        separated, sep_message = _separation_check(outcome.params, outcome.hess, layout.m, names, message)
+        if not separated:
+            return False, sep_message
+    if converged:
+        return True, message
+    if _crossing_failure(design, outcome, layout):
+        _raise_crossing(layout, design, outcome.params)
+    check_convergence(outcome, what=what)
+    return False, message
 
 
 def fit_layout(layout, D, y, weights, link, *, max_iter=100, tol=1e-10, callback=None, what="fit",
@@ -191,13 +211,10 @@ def fit_layout(layout, D, y, weights, link, *, max_iter=100, tol=1e-10, callback
     outcome = newton_maximize(lambda x, o: design.sums(lk, x, order=o), start, feasible=design.feasible,
                               max_iter=max_iter, tol=tol, callback=callback)
     converged, message, condition = check_convergence(outcome, what=what, warn=False)
-    if not converged and _crossing_failure(design, outcome, layout):
+    if warn:
+        converged, message = _interpret(design, outcome, layout, what, converged, message)
+    elif not converged and _crossing_failure(design, outcome, layout):
         _raise_crossing(layout, design, outcome.params)
-    if warn and not converged:
-        check_convergence(outcome, what=what)
-    if converged and warn:
-        converged, message = _separation_check(outcome.params, outcome.hess, layout.m,
-                                               layout.param_names()[layout.m:], message)
     A = _to_user_scale(layout, mean, sd)
     grad_user = np.linalg.solve(A.T, outcome.grad)
     return LayoutFit(A @ outcome.params, _covariance(outcome.hess, A), float(outcome.loglik), converged,
