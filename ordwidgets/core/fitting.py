@@ -66,7 +66,8 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
     formula : str
         ``"response ~ predictors"`` in Wilkinson notation (formulaic); no intercept is fitted
         (the thresholds play its role).
-    data : pandas.DataFrame
+    data : pandas.DataFrame or dask.dataframe.DataFrame
+        A Dask frame is fitted partition by partition (needs ``pip install 'ordwidgets[dask]'``).
     link : {"logit", "probit", "cloglog", "loglog", "cauchit"}
     weights : str or array_like, optional
         Non-negative frequency weights (column name or array).
