@@ -29,6 +29,7 @@ import traitlets as tl
 
 from .core import FitResult, OrdinalDataError, fit as core_fit, interval_probability, link_names
 from . import _spec
+from ._loglik import RowLoglik
 
 __all__ = ["FitState", "CHANGE_KINDS"]
 
@@ -141,9 +142,35 @@ class FitState(tl.HasTraits):
             frame[self.focus] = list(focus_values)
         return _spec.match_dtypes(frame, self.data)
 
+    def design_of(self, frame) -> np.ndarray:
+        """Design rows of ``frame`` for the current fit.
+
+        Rows are cached by content (scenario rows repeat on every edit); only rows not seen
+        since the last refit go through the formula machinery, in one call.
+        """
+        if not len(frame):
+            return self.fit.design(frame)
+        keys = pd.util.hash_pandas_object(frame, index=False).to_numpy()
+        new = [i for i, k in enumerate(keys) if k not in self._designs]
+        if new:
+            if len(self._designs) > 5000:
+                self._designs.clear()
+                new = list(range(len(keys)))
+            rows = self.fit.design(frame.iloc[new])
+            self._designs.update(zip(keys[new], rows))
+        return np.array([self._designs[k] for k in keys])
+
     def eta_of(self, frame) -> np.ndarray:
         """Linear predictor ``x'beta`` of the rows of ``frame`` under the current fit."""
-        return self.fit.linear_predictor(frame)
+        return self._eta(self.design_of(frame))
+
+    def _eta(self, D):
+        res = self.fit
+        if getattr(res, "layout", None) is not None:
+            from .core.extended import location_predictor
+
+            return location_predictor(res.layout, res.params, D)
+        return D @ res.params[res.n_thresholds:] if D.shape[1] else np.zeros(len(D))
 
     def cuts_of(self, frame):
         """Standardised cut points at the shown thresholds for the rows of ``frame``.
@@ -156,13 +183,14 @@ class FitState(tl.HasTraits):
         -------
         eta, U, sigma : ndarray, shapes (n,), (n, J-1), (n,)
         """
-        res, eta = self.fit, self.eta_of(frame)
+        res, D = self.fit, self.design_of(frame)
+        eta = self._eta(D)
         if getattr(res, "layout", None) is None:
             return eta, self.theta[None, :] - eta[:, None], np.ones(len(eta))
         from .core.extended import cumulative_predictors
 
         params = np.concatenate([self.theta, res.params[res.n_thresholds:]])
-        U, sigma = cumulative_predictors(res.layout, params, res.design(frame))
+        U, sigma = cumulative_predictors(res.layout, params, D)
         return eta, U, np.asarray(sigma, float) * np.ones(len(eta))
 
     def probabilities(self, frame) -> np.ndarray:
@@ -200,7 +228,7 @@ class FitState(tl.HasTraits):
     @tl.validate("selection")
     def _valid_selection(self, proposal):
         rows = np.unique(np.asarray(proposal["value"], dtype=np.int64))
-        n = self.fit.n_training if self.fit is not None else 0
+        n = n_training(self.fit) if self.fit is not None else 0
         if rows.size and (rows[0] < 0 or rows[-1] >= n):
             raise tl.TraitError(f"selection holds row positions outside 0..{n - 1}")
         return tuple(int(r) for r in rows)
@@ -297,6 +325,7 @@ class FitState(tl.HasTraits):
         return core_fit(self.model_formula, self.data, link=self.link, **kwargs)
 
     def _install(self, res):
+        self._designs = {}
         self.fit = res
         self.error = ""
         self._good = {k: getattr(self, k) for k in _SPEC}
@@ -305,7 +334,7 @@ class FitState(tl.HasTraits):
         self.baseline = _spec.complete_scenario(self.baseline, self.data, self.formula, lenient=True)
         if self.focus not in self.included:
             self.focus = self.included[0] if self.included else ""
-        self.selection = tuple(r for r in self.selection if r < res.n_training)
+        self.selection = tuple(r for r in self.selection if r < n_training(res))
         self._update_loglik()
 
     def _restore_good(self, message):
@@ -315,9 +344,8 @@ class FitState(tl.HasTraits):
         self.error = message
 
     def _update_loglik(self):
-        res = self.fit
         fitted = self.fitted_loglik
-        ll = fitted if not self.edited else res.loglik_at(thresholds=self.theta)
+        ll = fitted if not self.edited else self._loglik_at(self.theta)
         self.loglik = float(ll)
         self.lr_distance = float(max(2.0 * (fitted - ll), 0.0))
 
@@ -325,7 +353,18 @@ class FitState(tl.HasTraits):
     def fitted_loglik(self) -> float:
         """Fitted log-likelihood on the rows :attr:`loglik` uses (the display sample of a Dask fit)."""
         res = self.fit
-        return res.loglik if res.n_training == res.n_rows else res.loglik_at()
+        if getattr(self, "_fitted_ll", (None,))[0] is not res:
+            whole = n_training(res) == res.n_rows
+            self._fitted_ll = (res, res.loglik if whole else res.loglik_at())
+        return self._fitted_ll[1]
+
+    def _loglik_at(self, theta):
+        res = self.fit
+        if getattr(res, "layout", None) is not None:
+            return res.loglik_at(thresholds=theta)
+        if getattr(self, "_rows_fit", None) is not res:
+            self._rows_fit, self._rows = res, RowLoglik(res)
+        return self._rows.at(theta)
 
     # ---- long work off the interaction path -------------------------------------------------------------
     def run_long(self, label, work, done):
@@ -410,6 +449,11 @@ class FitState(tl.HasTraits):
         """Stop long work started by this state."""
         if self.executor is not None:
             self.executor.shutdown(wait=False, cancel_futures=True)
+
+
+def n_training(res) -> int:
+    """Rows the fit holds for residuals and edited log-likelihoods (a sample for Dask fits)."""
+    return getattr(res, "n_training", res.n_rows)
 
 
 def _result_or_error(work):

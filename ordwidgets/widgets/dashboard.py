@@ -91,7 +91,7 @@ def dashboard(state_or_fit, *, data=None, background=True):
     Dashboard
     """
     if isinstance(state_or_fit, FitResult):
-        executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix="ow-long") if background else None
+        executor = ThreadPoolExecutor(max_workers=2, thread_name_prefix="ow-long") if background else None
         state_or_fit = FitState.from_fit(state_or_fit, data=data, executor=executor)
     if not isinstance(state_or_fit, FitState):
         raise TypeError(f"dashboard needs a FitState or a FitResult, got {type(state_or_fit).__name__}")

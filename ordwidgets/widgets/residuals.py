@@ -1,14 +1,17 @@
 """``ResidualPanel``: surrogate residuals against the fit or a predictor, QQ plot and tests."""
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import bqplot as bq
 import ipywidgets as w
 import numpy as np
 
 from .._spec import grid_values
+from ..state import n_training
 from ._common import PanelBase, esc, figure_toolbar, fmt, html_table, make_figure
 
-__all__ = ["ResidualPanel", "MAX_POINTS", "residual_tools"]
+__all__ = ["ResidualPanel", "ResidualView", "residual_view", "MAX_POINTS", "residual_tools"]
 
 MAX_POINTS = 5000
 _ETA = "fitted eta (x'beta)"
@@ -24,6 +27,40 @@ def residual_tools():
     return residuals, diagnostics
 
 
+@dataclass(frozen=True, eq=False)
+class ResidualView:
+    """Everything the residual panel draws, computed off the interaction path."""
+
+    fit: object
+    thresholds: object
+    draws: int
+    seed: int
+    x: np.ndarray
+    residuals: np.ndarray
+    reference: object
+    description: str
+    trend: object
+    qq: object
+    tests: dict
+    moments: object
+
+
+def residual_view(tools, res, thresholds, draws, seed, x) -> ResidualView:
+    """Surrogate residuals of ``res`` at ``thresholds`` with their trend, QQ points and tests.
+
+    Every statistic uses all rows; ``x`` is the variable the trend and tests are taken against.
+    """
+    residuals, diag = tools
+    drawn = residuals.draw_surrogate(res, draws=draws, seed=seed, thresholds=thresholds)
+    r, ref, weights = drawn.residuals, drawn.reference, res.training.weights
+    v = ref.cdf(r[:, 0]) - 0.5
+    tests = {"distance": diag.distance_test(r[:, 0], ref, weights=weights),
+             "trend": diag.trend_test(x, v, weights=weights), "spread": diag.spread_test(x, v, weights=weights)}
+    return ResidualView(res, thresholds, draws, seed, x, r, ref, drawn.description,
+                        diag.binned_means(x, r, bins=20, weights=weights),
+                        diag.qq_points(r, ref, quantiles=200, weights=weights), tests, diag.moment_table(r, ref))
+
+
 class ResidualPanel(PanelBase):
     """Surrogate residuals at the shown thresholds, with a binned trend, QQ plot and tests.
 
@@ -33,15 +70,15 @@ class ResidualPanel(PanelBase):
     """
 
     _dispatch = {
-        "fit": ("_update_x_options", "_update_residuals", "_update_plots", "_update_selection"),
-        "thresholds": ("_update_residuals", "_update_plots"),
-        "residuals": ("_update_residuals", "_update_plots"),
+        "fit": ("_update_x_options", "_update_residuals", "_update_selection"),
+        "thresholds": ("_update_residuals",),
+        "residuals": ("_update_residuals",),
         "selection": ("_update_selection",),
     }
 
     def __init__(self, state, **kwargs):
         super().__init__(state, "ow-residual-panel", **kwargs)
-        self.tools = residual_tools()
+        self.tools, self._generation = residual_tools(), 0
         self.x_choice = self.own(w.Dropdown(description="against"))
         self.x_choice.observe(self._x_chosen, names="value")
         self.seed = self.own(w.BoundedIntText(value=state.residual_seed, min=0, max=2**31 - 1,
@@ -70,7 +107,7 @@ class ResidualPanel(PanelBase):
         xs, ys = bq.LinearScale(), bq.LinearScale()
         sc = {"x": xs, "y": ys}
         self.points = bq.Scatter(x=[0.0], y=[0.0], scales=sc, default_size=8, colors=["#315f9b"],
-                                 default_opacities=[0.45], selected_style={"fill": "#c84b31", "opacity": 1.0},
+                                 opacities=[0.45], selected_style={"fill": "#c84b31", "opacity": 1.0},
                                  unselected_style={"opacity": 0.3})
         self.band = bq.Lines(x=[0.0, 1.0], y=[[0.0, 0.0], [0.0, 0.0]], scales=sc, fill="between",
                              fill_colors=["#f2a93b", None], fill_opacities=[0.3, 0.0], stroke_width=0)
@@ -108,15 +145,22 @@ class ResidualPanel(PanelBase):
             self.seed.value, self.draws.value = self.state.residual_seed, self.state.residual_draws
         res = self.state.fit
         self._eta = res.linear_predictor()
-        self._shown = self.tools[1].display_rows(res.n_training, max_points=MAX_POINTS, seed=0)
+        self._shown = self.tools[1].display_rows(n_training(res), max_points=MAX_POINTS, seed=0)
 
     def _update_residuals(self):
+        """Recompute residuals and diagnostics: inline on a refit, as long work on edits."""
         st = self.state
         with self._guard():
             self.seed.value, self.draws.value = st.residual_seed, st.residual_draws
-        thresholds = st.theta if st.edited else None
-        self.draw = self.tools[0].draw_surrogate(st.fit, draws=st.residual_draws, seed=st.residual_seed,
-                                                 thresholds=thresholds)
+        self._generation += 1
+        job, x = self._generation, self.x_values()[0]
+        args = (st.fit, st.theta if st.edited else None, st.residual_draws, st.residual_seed, x)
+        if "fit" in st.changed or st.executor is None:
+            self._draw(residual_view(self.tools, *args))
+            return
+        st.run_long("updating residuals", lambda: residual_view(self.tools, *args) if job == self._generation
+                    else None, lambda view: self._draw(view) if view is not None and job == self._generation
+                    else None)
 
     def x_values(self):
         """Values of the chosen x variable for every fitted row, and tick labels if categorical."""
@@ -132,45 +176,40 @@ class ResidualPanel(PanelBase):
 
     def _x_chosen(self, change):
         if not self._syncing:
-            self._update_plots()
+            self._draw(residual_view(self.tools, self.view.fit, self.view.thresholds, self.view.draws,
+                                     self.view.seed, self.x_values()[0]))
 
-    def _update_plots(self):
-        x, ticks = self.x_values()
-        r = self.draw.residuals
-        diag = self.tools[1]
-        weights = self.state.fit.training.weights
-        trend = diag.binned_means(x, r, bins=20, weights=weights)
-        qq = diag.qq_points(r, self.draw.reference, quantiles=200, weights=weights)
-        shown = self._shown
+    def _draw(self, view):
+        """Copy a computed :class:`ResidualView` onto the marks."""
+        self.view = view
+        ticks = self.x_values()[1]
+        r, trend, qq, shown = view.residuals, view.trend, view.qq, self._shown
         with self.points.hold_sync(), self.trend.hold_sync(), self.band.hold_sync(), self.qq.hold_sync():
-            self.points.x, self.points.y = x[shown], r[shown, 0]
+            self.points.x, self.points.y = view.x[shown], r[shown, 0]
             self.trend.x, self.trend.y = trend["center"].to_numpy(), trend["mean"].to_numpy()
             self.band.x, self.band.y = trend["center"].to_numpy(), trend[["lower", "upper"]].to_numpy().T
-            self.zero.x, self.zero.y = [float(np.min(x)), float(np.max(x))], [0.0, 0.0]
+            self.zero.x, self.zero.y = [float(np.min(view.x)), float(np.max(view.x))], [0.0, 0.0]
             self.qq.x, self.qq.y = qq["theoretical"].to_numpy(), qq["sample"].to_numpy()
             ends = [float(qq["theoretical"].min()), float(qq["theoretical"].max())]
             self.qq_line.x, self.qq_line.y = ends, ends
-            self.x_axis.label, self.x_axis.tick_values = str(self.x_choice.value), (
-                np.array(list(ticks)) if ticks else None)
+            self.x_axis.label = str(self.x_choice.value)
+            self.x_axis.tick_values = np.array(list(ticks)) if ticks else None
             self.x_axis.tick_labels = ticks
-        self._update_summary(x, r)
+        self._update_summary(view)
 
-    def _update_summary(self, x, r):
-        diag, ref, weights = self.tools[1], self.draw.reference, self.state.fit.training.weights
-        v = ref.cdf(r[:, 0]) - 0.5
-        tests = [("distance from " + ref.name, *diag.distance_test(r[:, 0], ref, weights=weights)),
-                 (f"trend against {self.x_choice.value}", *diag.trend_test(x, v, weights=weights)),
-                 (f"spread against {self.x_choice.value}", *diag.spread_test(x, v, weights=weights))]
-        moments = diag.moment_table(r, ref)
-        rows = [[name, fmt(s, 4), fmt(p, 3)] for name, s, p in tests]
+    def _update_summary(self, view):
+        name = self.x_choice.value
+        rows = [[f"distance from {view.reference.name}", *view.tests["distance"]],
+                [f"trend against {name}", *view.tests["trend"]], [f"spread against {name}", *view.tests["spread"]]]
+        rows = [[label, fmt(s, 4), fmt(p, 3)] for label, s, p in rows]
         rows += [[f"{m['summary']}: observed / expected", f"{fmt(m['observed'], 4)} / {fmt(m['expected'], 4)}", ""]
-                 for _, m in moments.iterrows()]
-        res = self.state.fit
-        n, kept = res.n_rows, res.n_training
+                 for _, m in view.moments.iterrows()]
+        res = view.fit
+        n, kept = res.n_rows, n_training(res)
         scope = f"statistics use all {n:,} rows" if kept == n else \
             f"residual checks use {res.training.describe()} (the estimates use all {n:,})"
         self.count.value = (f"showing {len(self._shown):,} of {kept:,} points (reproducible sample); "
-                            f"{scope}. {esc(self.draw.description)}.")
+                            f"{esc(scope)}. {esc(view.description)}.")
         self.summary.value = html_table(["check", "statistic", "p-value"], rows)
 
     # ---- brushing and selection -----------------------------------------------------------------------
@@ -193,7 +232,7 @@ class ResidualPanel(PanelBase):
             return
         frame = self.state.frame.iloc[rows[:_TABLE_ROWS]]
         cols = [self.state.fit.response] + [c for c in self.state.included if c in frame.columns]
-        body = [[idx] + [frame.at[idx, c] for c in cols] + [fmt(self.draw.residuals[p, 0], 4)]
+        body = [[idx] + [frame.at[idx, c] for c in cols] + [fmt(self.view.residuals[p, 0], 4)]
                 for idx, p in zip(frame.index, rows[:_TABLE_ROWS])]
         more = f" (first {_TABLE_ROWS} shown)" if rows.size > _TABLE_ROWS else ""
         self.table.value = (f"<b>{rows.size:,} selected rows</b>{more}"
