@@ -239,3 +239,20 @@ def test_dashboard_shows_a_dask_fit_through_its_sample(frame):
         assert "on a sample of 200 of 600 rows" in board.threshold_panel.readout.value
     finally:
         board.close()
+
+
+def test_progress_in_a_notebook_updates_one_display(frame, monkeypatch):
+    import IPython.display
+
+    from ordwidgets.core import progress
+
+    shown = []
+
+    class Handle:
+        def update(self, obj, raw):
+            shown.append(obj["text/plain"])
+
+    monkeypatch.setattr(progress, "_in_kernel", lambda: True)
+    monkeypatch.setattr(IPython.display, "display", lambda *a, **k: Handle())
+    rd = ow.fit("rating ~ age", dd.from_pandas(frame, npartitions=2))  # progress="auto"
+    assert len(shown) == rd.iterations + 3 and "done: converged" in shown[-1]
