@@ -209,3 +209,14 @@ def test_separation_by_a_non_parallel_predictor_is_named_in_the_refusal():
     df = pd.DataFrame({"y": np.where(g == 1, 2, rng.choice(3, 100)), "g": g, "x": rng.normal(size=100)})
     with pytest.raises(ow.CrossingError, match="20 rows.*same extreme category.*separate"):
         ow.fit("y ~ g + x", df, nonparallel=["g"])
+
+
+def test_display_separates_scale_effects_and_names_the_extensions():
+    # Common practice, no source: scale effects are not location effects and are shown apart.
+    df = sim_extended(n=150, seed=14)
+    res = ow.fit("y ~ x + g", df, nonparallel=["g"], scale_by=["z"])
+    html = res._repr_html_()
+    assert html.index("Effects (positive") < html.index("g @ 0-&gt;1") < html.index("Scale effects") < html.index("scale: z")
+    facts = res.facts()
+    assert facts["per-threshold effects"] == "g" and facts["scale effects"] == "z"
+    assert "per-threshold effects" not in ow.fit("y ~ x", df).facts()

@@ -164,3 +164,15 @@ def test_bad_levels_and_methods_are_refused():
             res.predict(df, level=bad)
     with pytest.raises(ValueError, match="'wald' or 'profile'"):
         res.intervals(method="bootstrap")
+
+
+def test_compare_warns_when_the_larger_fit_is_worse():
+    # A larger nested model can never have a lower maximum: that means a failed fit.
+    import dataclasses
+
+    df, _, _ = small_data(seed=8)
+    small, large = ow.fit("y ~ x", df), ow.fit("y ~ x + v", df)
+    broken = dataclasses.replace(large, loglik=small.loglik - 1.0)
+    with pytest.warns(ow.ConvergenceWarning, match="not at its maximum"):
+        table = ow.compare(small, broken)
+    assert np.isnan(table.loc["larger", "p_value"])

@@ -31,7 +31,7 @@ import numpy as np
 from .links import get_link
 from .objective import row_terms
 
-__all__ = ["ModelLayout", "ExtendedDesign", "layout_of", "scale_name", "per_threshold_name"]
+__all__ = ["ModelLayout", "ExtendedDesign", "layout_of", "scale_name", "per_threshold_name", "effect_groups"]
 
 
 def per_threshold_name(column, threshold):
@@ -234,6 +234,10 @@ class ExtendedDesign:
             Z = self.layout.arrays(self.scale_design)[2]
         self._arrays = (X, W, Z)
 
+    @property
+    def n_params(self) -> int:
+        return self.layout.n_params
+
     def counts(self):
         """Weighted number of rows in each category."""
         return np.bincount(self.y, weights=self.weights, minlength=self.layout.m + 1).astype(float)
@@ -311,3 +315,25 @@ def error_bounds_of(res, thresholds=None, coefficients=None):
     full = np.column_stack([np.full(n, -np.inf), U, np.full(n, np.inf)])
     rows = np.arange(n)
     return full[rows, tr.y], full[rows, tr.y + 1]
+
+
+def effect_groups(res):
+    """Names of a fit's effects by kind: ``"parallel"``, ``"per_threshold"``, ``"scale"``."""
+    layout = layout_of(res)
+    names = layout.param_names()
+    _, bb, gb, zb = layout.blocks()
+    return {"parallel": names[bb], "per_threshold": names[gb], "scale": names[zb]}
+
+
+def model_facts(res) -> dict:
+    """Display facts of a fit with per-threshold or scale effects (empty for a parallel fit)."""
+    layout = getattr(res, "layout", None)
+    if layout is None:
+        return {}
+    cols = layout.columns
+    facts = {"per-threshold effects": ", ".join(cols[i] for i in layout.nonparallel) or "none",
+             "scale effects": ", ".join(cols[i] for i in layout.scale) or "none"}
+    crossing = res.options.get("crossing")
+    if crossing:
+        facts["cumulative probabilities cross"] = "; ".join(crossing)
+    return facts

@@ -23,7 +23,7 @@ import numpy as np
 from .design import check_collinear, prepare, split_formula, threshold_labels
 from .exceptions import CrossingError, CrossingWarning, OrdinalDataError
 from .extended import ExtendedDesign, ModelLayout, unscaled_cuts
-from .fitting import _covariance, _separation_check, closed_form_thresholds, standardise
+from .fitting import _covariance, _second_start, _separation_check, closed_form_thresholds, standardise
 from .links import get_link
 from .optimize import ascent_direction, check_convergence, newton_maximize
 from .results import FitResult, TrainingData
@@ -208,8 +208,11 @@ def fit_layout(layout, D, y, weights, link, *, max_iter=100, tol=1e-10, callback
     mean, sd = standardise(D, weights)
     design = ExtendedDesign(layout, (D - mean) / sd, y, weights, scale_design=D / sd)
     start = np.concatenate([closed_form_thresholds(lk, design.counts()), np.zeros(layout.n_params - layout.m)])
-    outcome = newton_maximize(lambda x, o: design.sums(lk, x, order=o), start, feasible=design.feasible,
-                              max_iter=max_iter, tol=tol, callback=callback)
+    evaluate = lambda x, o: design.sums(lk, x, order=o)  # noqa: E731
+    outcome = newton_maximize(evaluate, start, feasible=design.feasible, max_iter=max_iter, tol=tol,
+                              callback=callback)
+    if lk.name == "cauchit" and layout.n_params > layout.m:
+        outcome = _second_start(outcome, design, evaluate, design.feasible, layout.m, max_iter, tol)
     converged, message, condition = check_convergence(outcome, what=what, warn=False)
     if warn:
         converged, message = _interpret(design, outcome, layout, what, converged, message)

@@ -257,7 +257,11 @@ def compare(smaller, larger):
     if df <= 0:
         raise ComparisonError(f"the larger fit has no extra parameters ({larger.n_params} vs {smaller.n_params})")
     stat = 2.0 * (larger.loglik - smaller.loglik)
-    stat = max(stat, 0.0) if stat > -1e-6 * (1 + abs(larger.loglik)) else stat
+    if stat < -1e-6 * (1 + abs(larger.loglik)):
+        warnings.warn(f"the larger fit has the lower log-likelihood ({larger.loglik:.6f} < {smaller.loglik:.6f}): "
+                      "it is not at its maximum; no p-value", ConvergenceWarning, stacklevel=2)
+    else:
+        stat = max(stat, 0.0)
     return pd.DataFrame(
         {"model": [_describe(smaller), _describe(larger)], "n_params": [smaller.n_params, larger.n_params],
          "loglik": [smaller.loglik, larger.loglik], "statistic": [np.nan, stat], "df": [np.nan, df],

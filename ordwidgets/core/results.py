@@ -9,7 +9,7 @@ import pandas as pd
 from scipy import stats
 
 from .effects import prediction_intervals, probabilities_at
-from .extended import error_bounds_of, location_predictor
+from .extended import effect_groups, error_bounds_of, location_predictor, model_facts
 from .links import Link
 from .probabilities import category_probabilities, interval_logprob
 
@@ -304,6 +304,7 @@ class FitResult:
             "rows shown": self.training.describe()}
         return {
             "link": f"{self.link.name} (latent {self.link.latent})",
+            **model_facts(self),
             "rows": self.n_rows,
             **sample,
             "n (weighted)": self.n_obs,
@@ -366,8 +367,12 @@ def render_html(res) -> str:
         return out
 
     body = rows(res.threshold_names, "Thresholds (cut points on the latent scale)")
-    if res.coef_names:
-        body += rows(res.coef_names, "Effects (positive = towards higher categories)")
+    scale = effect_groups(res)["scale"]
+    location = [n for n in res.coef_names if n not in scale]
+    if location:
+        body += rows(location, "Effects (positive = towards higher categories)")
+    if scale:
+        body += rows(scale, "Scale effects (positive = wider latent spread, more mass in the extremes)")
     notes = "".join(f"<div style='color:#8a5a00'>note: {e(n)}</div>" for n in res.notes)
     return (
         "<div class='ow-fit-result'>"
