@@ -143,7 +143,18 @@ def model_kwargs(nonparallel, scale_by, included) -> dict:
 
 
 def link_rows(formula, data, options, extra) -> list:
-    """loglik / AIC / BIC of every link for one spec (a failed fit gives an ``error`` row)."""
+    """loglik / AIC / BIC of every link for one spec, best first when the core ranks them.
+
+    Uses ``ow.compare_links`` when the core has it; otherwise fits each link (a failed fit
+    gives an ``error`` row).
+    """
+    from . import core
+
+    if hasattr(core, "compare_links"):
+        table = core.compare_links(formula, data, **options, **extra)
+        return [{"link": str(name), "loglik": row["loglik"], "aic": row["aic"], "bic": row["bic"],
+                 "converged": bool(row["converged"]), "error": "" if row["converged"] else str(row["message"])}
+                for name, row in table.iterrows()]
     rows = []
     for name in link_names():
         try:

@@ -47,11 +47,10 @@ def test_focus_dropdown_sets_state(panel):
     check_explorer(panel)
 
 
-def test_lines_view_reports_missing_intervals(panel):
+def test_lines_view_hides_the_stack(panel):
     panel.view.value = "lines"
     assert panel.lines.visible and not panel.bands.visible
-    has_intervals = "level" in __import__("inspect").signature(panel.state.fit.predict).parameters
-    assert panel.ci.visible == has_intervals or "not available" in panel.note.value
+    check_explorer(panel)
 
 
 def test_dropping_the_focus_moves_it(panel):
@@ -67,3 +66,20 @@ def test_whatif_escapes_labels(panel):
     st.scenario = {"group": "<script>alert(1)</script>"}
     assert "<script>" not in panel.whatif.value and "&lt;script&gt;" in panel.whatif.value
     assert "<i>low</i>" not in panel.whatif.value and "&lt;i&gt;low&lt;/i&gt;" in panel.whatif.value
+
+
+def test_interval_bands_equal_the_core_intervals(panel):
+    import inspect
+
+    panel.view.value = "lines"
+    if "level" not in inspect.signature(panel.state.fit.predict).parameters:
+        assert not panel.ci.visible and "not available" in panel.note.value
+        return
+    frame = panel.grid_frame()[3]
+    ref = panel.state.fit.predict(frame, kind="probabilities", level=0.95)  # reference: the core
+    bands = np.asarray(panel.ci.y)
+    np.testing.assert_allclose(bands[0::2], ref["lower"].to_numpy().T, atol=1e-12)
+    np.testing.assert_allclose(bands[1::2], ref["upper"].to_numpy().T, atol=1e-12)
+    assert panel.ci.visible
+    panel.state.set_threshold(0, panel.state.theta[0] + 0.2)
+    assert not panel.ci.visible and "fitted thresholds only" in panel.note.value

@@ -63,6 +63,8 @@ def test_po_figures_beside_each_predictor(panel):
     table = panel.state.fit.proportional_odds_test()  # reference: the core's test table
     assert f"{table.loc['dose', 'statistic']:.4g}" in texts["dose"]
     assert "C(group)[T.&lt;script&gt;alert(1)&lt;/script&gt;]: chi2" in texts["group"]
+    overall = table.loc["(overall)"]
+    assert f"chi2 {overall['statistic']:.4g} on {overall['df']:.3g} df" in panel.po_overall.value
 
 
 def test_background_link_table_shows_busy_then_rows(data):

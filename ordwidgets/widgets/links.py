@@ -48,13 +48,14 @@ class LinkSelector(PanelBase):
         self.table.add_class("ow-link-table")
         self.controls = self.own(w.VBox())
         self.controls.add_class("ow-model-controls")
-        self.message = self.own(w.HTML())
+        self.message, self.po_overall = self.own(w.HTML(), w.HTML())
         self._rows, self._po = {}, {}
         supported = inspect.signature(core_fit).parameters
         self._can = {k: k in supported for k in ("nonparallel", "scale_by")}
         self.children = [w.HTML("<b>Link and model</b>"), self.dropdown, self.table,
                          w.HTML("<b>Predictors</b> (in model &middot; non-parallel &middot; scale effect "
-                                "&middot; proportional-odds test)"), self.controls, self.message]
+                                "&middot; proportional-odds test)"), self.controls, self.po_overall,
+                         self.message]
         self.redraw_all()
 
     # ---- link -----------------------------------------------------------------------------------
@@ -126,6 +127,8 @@ class LinkSelector(PanelBase):
 
     def _update_po(self):
         available = hasattr(self.state.fit, "proportional_odds_test")
+        overall = self._po.get("(overall)")
+        self.po_overall.value = f"all predictors together: {esc(overall)}" if overall else ""
         for name, (*_, text) in self._rows.items():
             if name in self.state.dropped:
                 text.value = "<i>out of the model</i>"
