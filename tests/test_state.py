@@ -181,3 +181,32 @@ def test_random_edits_keep_the_state_consistent(state):
             state.reset_thresholds()
         assert np.all(np.diff(state.theta) > 0)
         assert state.loglik == pytest.approx(state.fit.loglik_at(thresholds=state.theta), abs=1e-9)
+
+
+def test_batch_validates_the_final_thresholds_only(state):
+    theta = state.theta
+    shifted = tuple(theta + 5.0)
+    with state.batch():  # an intermediate assignment may cross; the final one is checked
+        state.thresholds = (theta[0] + 5.0, theta[1], theta[2])
+        state.thresholds = shifted
+    assert state.thresholds == shifted
+    with pytest.raises(traitlets.TraitError):
+        with state.batch():
+            state.thresholds = (9.0, 8.0, 10.0)
+    assert state.thresholds == shifted  # rolled back
+    n0 = state.updates
+    state.set_threshold(0, shifted[0] - 0.1)
+    assert state.updates == n0 + 1 and state.changed == ("thresholds",)
+
+
+def test_data_and_options_changes_refit(data):
+    st = FitState(data=data, formula=FORMULA)
+    weighted = data.assign(w=np.arange(len(data)) % 3 + 1.0)
+    with st.batch():
+        st.data = weighted
+        st.options = {"weights": "w"}
+    ref = ow.fit(FORMULA, weighted, weights="w")  # reference: direct weighted fit
+    np.testing.assert_allclose(st.fit.params, ref.params, atol=1e-8)
+    assert st.loglik == pytest.approx(ref.loglik)
+    st.set_threshold(1, st.theta[1] + 0.2)  # weighted loglik at edited thresholds
+    assert st.loglik == pytest.approx(ref.loglik_at(thresholds=st.theta), abs=1e-9)

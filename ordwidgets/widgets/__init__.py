@@ -1,13 +1,17 @@
 """The linked panels of ordwidgets (ipywidgets + bqplot).
 
 Every panel observes and sets one :class:`~ordwidgets.state.FitState`, never another panel.
+Long work (link comparison, proportional-odds tests, residual refresh after an edit) goes
+through :meth:`FitState.run_long`: a background executor in :func:`dashboard`, inline when
+the state has no executor (as in the tests).
 
 CSS classes (``add_class``) are stable hooks for browser tests and styling:
 
 ==========================  ==========================================================
 ``ow-dashboard``            the whole dashboard
 ``ow-status``               "updates: N", bumped after every processed state change
-``ow-busy``                 what long work is running (empty when idle)
+``ow-busy``                 what long work is running (empty when idle; the residual
+                            refresh after an edit may land after ``updates`` moved)
 ``ow-threshold-panel``      :class:`ThresholdPanel`
 ``ow-threshold-slider``     each threshold slider
 ``ow-density-figure``       the latent density figure
