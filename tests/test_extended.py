@@ -220,3 +220,20 @@ def test_display_separates_scale_effects_and_names_the_extensions():
     facts = res.facts()
     assert facts["per-threshold effects"] == "g" and facts["scale effects"] == "z"
     assert "per-threshold effects" not in ow.fit("y ~ x", df).facts()
+
+
+def test_rescaling_and_shifting_columns_only_reparametrises_the_fit():
+    # Invariance (follows from the model formula): x -> a x + b and z -> c z + d leave the
+    # likelihood unchanged; the x effects are divided by a, the scale effect by c, and the
+    # thresholds absorb b; shifting z multiplies every location parameter by exp(d zeta / c).
+    df = sim_extended(n=200, seed=15)
+    base = ow.fit("y ~ x + g", df, nonparallel=["x"], scale_by=["z"])
+    moved = ow.fit("y ~ x + g", df.assign(x=3 * df.x + 2, z=0.5 * df.z + 1), nonparallel=["x"], scale_by=["z"])
+    assert moved.loglik == pytest.approx(base.loglik, rel=1e-10)
+    zeta = base.params[-1]
+    assert moved.params[-1] == pytest.approx(zeta / 0.5, rel=1e-6)
+    factor = np.exp(1 * zeta / 0.5)
+    gam = base.params[4:7]
+    np.testing.assert_allclose(moved.params[4:7], factor * gam / 3, rtol=1e-6)
+    np.testing.assert_allclose(moved.params[:3], factor * (base.params[:3] + 2 * gam / 3), rtol=1e-6)
+    assert moved.params[3] == pytest.approx(factor * base.params[3], rel=1e-6)

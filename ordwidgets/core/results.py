@@ -274,7 +274,12 @@ class FitResult:
         return intervals(self, level=level, method=method)
 
     def proportional_odds_test(self) -> pd.DataFrame:
-        """Likelihood-ratio and Brant tests of parallel effects, per predictor and overall."""
+        """Likelihood-ratio and Brant tests of parallel effects, per predictor and overall.
+
+        With many rows trivial departures become significant: judge a small p-value by the
+        ``max_prob_change`` / ``mean_prob_change`` columns (see
+        :mod:`ordwidgets.core.potest`).
+        """
         from .potest import proportional_odds_test
 
         return proportional_odds_test(self)
