@@ -96,10 +96,14 @@ def resolve_predictors(names, prep, what):
 
 def _prepare_with_scale(formula, data, weights, levels, scale_names):
     """Prepare the data; scale-only variables (not in the formula) are added to the design."""
-    prep = prepare(formula, data, weights=weights, levels=levels)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        prep = prepare(formula, data, weights=weights, levels=levels)
     known = _predictor_catalogue(prep)
     extra = [n for n in scale_names if n not in known and n in data.columns]
     if not extra:
+        for w in caught:  # the data warnings belong to this preparation: pass them on
+            warnings.warn(w.message, w.category, stacklevel=4)
         return prep, set()
     response, rhs = split_formula(formula)
     rhs2 = " + ".join([rhs] + [f"`{n}`" for n in extra])
