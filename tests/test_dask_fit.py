@@ -65,6 +65,13 @@ def test_dask_fit_equals_in_memory_fit(frame, scheduler, link):
     _same_fit(ow.fit(FORMULA, ddf, link=link), ow.fit(FORMULA, frame, link=link))
 
 
+@pytest.mark.parametrize("link", ["logit", "cauchit"])
+def test_cached_design_gives_the_same_fit(frame, scheduler, link):
+    rd = fit_dask(FORMULA, dd.from_pandas(frame, npartitions=4), link=link, cache=True)
+    assert rd.options["cache"]
+    _same_fit(rd, ow.fit(FORMULA, frame, link=link))
+
+
 def test_categorical_predictor_keeps_its_category_order(frame):
     df = frame.assign(group=pd.Categorical(frame.group, categories=["c", "a", "b"]))
     _same_fit(ow.fit(FORMULA, dd.from_pandas(df, npartitions=3)), ow.fit(FORMULA, df))

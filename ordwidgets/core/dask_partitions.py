@@ -173,16 +173,28 @@ def moment_partition(part, number, plan, cutoff, seed):
     return {"weight": total, "mean": mean, "m2": Xc.T @ (Xc * wt[:, None]), "sample": sample}
 
 
-def sums_partition(part, plan, link, params, order):
-    """Log-likelihood, gradient and Hessian (internal scale) of one partition's rows."""
+def prepared_partition(part, plan):
+    """One partition as a :class:`SortedDesign`: standardised columns sorted by category.
+
+    This is all the Newton steps need (8 bytes per row and column, plus the weights), and
+    what a fit with ``cache=True`` keeps in memory between steps.
+    """
     X, y, w, _ = design_arrays(part, plan)
-    J = plan.n_levels
-    if len(y) == 0:
-        k = len(params)
-        return 0.0, np.zeros(k) if order >= 1 else None, np.zeros((k, k)) if order >= 2 else None
-    rank, bounds = sort_by_category(y, J)
+    rank, bounds = sort_by_category(y, plan.n_levels)
     Xs = X[rank]
     Xs -= plan.mean
     Xs /= plan.sd
-    design = SortedDesign(np.asfortranarray(Xs), bounds, None if w is None else w[rank])
+    return SortedDesign(np.asfortranarray(Xs), bounds, None if w is None else w[rank])
+
+
+def design_sums(design, plan, link, params, order):
+    """Log-likelihood, gradient and Hessian of a prepared partition (``plan`` unused)."""
+    if design.X.shape[0] == 0:
+        k = len(params)
+        return 0.0, np.zeros(k) if order >= 1 else None, np.zeros((k, k)) if order >= 2 else None
     return design.sums(link, params, order=order)
+
+
+def sums_partition(part, plan, link, params, order):
+    """Log-likelihood, gradient and Hessian (internal scale) of one partition's rows."""
+    return design_sums(prepared_partition(part, plan), plan, link, params, order)
