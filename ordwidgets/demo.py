@@ -39,7 +39,8 @@ import numpy as np
 import pandas as pd
 from scipy.special import expit
 
-__all__ = ["GRADES", "SPECIES", "DemoTruth", "street_trees", "street_tree_truth", "true_probabilities"]
+__all__ = ["GRADES", "SPECIES", "DemoTruth", "street_trees", "street_tree_truth", "true_probabilities",
+           "true_parameters"]
 
 GRADES = ("poor", "fair", "good", "excellent")
 SPECIES = ("linden", "maple", "plane", "locust")
@@ -106,6 +107,37 @@ def street_tree_truth(*, nonparallel=True, heteroscedastic=True) -> DemoTruth:
     delta = base.nonparallel["arterial"] if nonparallel else (base.arterial_parallel,) * 3
     zeta = base.scale["years"] if heteroscedastic else 0.0
     return DemoTruth(nonparallel={"arterial": tuple(delta)}, scale={"years": zeta})
+
+
+def true_parameters(res, truth=None) -> pd.Series:
+    """True values of a fit's parameters, aligned with ``res.names``.
+
+    Knows the names ``ow.fit`` gives the street-tree model's parameters: thresholds, parallel
+    effects, ``"arterial @ <threshold>"`` for the non-parallel arterial effect and
+    ``"scale: years"``.  A parameter the true model does not have (for example a parallel
+    ``arterial`` when the truth is non-parallel) is NaN.
+
+    Parameters
+    ----------
+    res : FitResult
+        A fit of :attr:`DemoTruth.formula` (any of its non-parallel / scale variants).
+    truth : DemoTruth, optional
+        Defaults to the full model (both departures present).
+
+    Returns
+    -------
+    pandas.Series
+    """
+    from .core.extended import per_threshold_name, scale_name
+
+    truth = truth or street_tree_truth()
+    delta = truth.nonparallel["arterial"]
+    values = dict(zip(res.threshold_names, truth.thresholds)) | truth.effects
+    values |= {per_threshold_name("arterial", t): d for t, d in zip(res.threshold_names, delta)}
+    values[scale_name("years")] = truth.scale["years"]
+    if len(set(delta)) == 1:
+        values["arterial"] = delta[0]
+    return pd.Series([values.get(n, np.nan) for n in res.names], index=res.names, name="true value")
 
 
 def _predictors(n, rng):

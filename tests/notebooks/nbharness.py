@@ -82,6 +82,23 @@ def _stop(proc):
 
 
 @contextmanager
+def serving(cmd, cwd, port, log_path):
+    """Run a server command in its own process group; yield its base URL once it answers.
+
+    The server (and every kernel it started) is always stopped on exit.
+    """
+    with open(log_path, "wb") as log:
+        proc = subprocess.Popen(cmd, cwd=cwd, env=kernel_env(), stdout=log, stderr=subprocess.STDOUT,
+                                start_new_session=True)
+    try:
+        base = f"http://127.0.0.1:{port}"
+        _wait_http(base + "/", proc, SERVER_START_SECONDS, log_path)
+        yield base
+    finally:
+        _stop(proc)
+
+
+@contextmanager
 def voila_server(target, log_path):
     """Serve ``target`` (a notebook or a folder) with Voila on a free localhost port.
 
@@ -93,16 +110,8 @@ def voila_server(target, log_path):
     cmd = [sys.executable, "-m", "voila", str(target), "--no-browser", f"--port={port}",
            "--Voila.ip=127.0.0.1", "--Voila.port_retries=0", "--VoilaExecutor.timeout=240",
            "--VoilaConfiguration.show_tracebacks=True"]
-    with open(log_path, "wb") as log:
-        proc = subprocess.Popen(cmd, cwd=target.parent if target.is_file() else target,
-                                env=kernel_env(), stdout=log, stderr=subprocess.STDOUT,
-                                start_new_session=True)
-    try:
-        base = f"http://127.0.0.1:{port}"
-        _wait_http(base + "/", proc, SERVER_START_SECONDS, log_path)
+    with serving(cmd, target.parent if target.is_file() else target, port, log_path) as base:
         yield base
-    finally:
-        _stop(proc)
 
 
 class PageWatch:
