@@ -60,7 +60,7 @@ def probability_jacobian(res, D, params=None):
     n, m = U.shape
     dC = np.zeros((n, m + 2, layout.n_params))
     for j in range(m):
-        u, du = end_jacobian(layout, params, arrays, U, sigma, np.full(n, j))
+        u, du = end_jacobian(layout, arrays, U, sigma, np.full(n, j))
         dC[:, j + 1] = res.link.pdf(u)[:, None] * du
     return probabilities_at(res, D, params), np.diff(dC, axis=1)
 

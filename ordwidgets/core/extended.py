@@ -155,7 +155,7 @@ def end_values(U, j):
     return np.where(inside, picked, np.where(j < 0, -np.inf, np.inf))
 
 
-def end_jacobian(layout, params, arrays, U, sigma, j):
+def end_jacobian(layout, arrays, U, sigma, j):
     """Derivatives ``du_i/dparams`` of the cut ``j_i`` of each row.
 
     Parameters
@@ -246,17 +246,13 @@ class ExtendedDesign:
         """``(U, sigma)`` for the training rows."""
         return cuts_from_arrays(self.layout, params, self._arrays)
 
+    def gaps(self, params):
+        """Gaps between adjacent unscaled cuts, ``(n, m - 1)``; all positive when feasible."""
+        return np.diff(unscaled_cuts(self.layout, params, self._arrays[1]), axis=1)
+
     def feasible(self, params):
         """Finite parameters and strictly increasing cuts for every training row."""
-        if not np.all(np.isfinite(params)):
-            return False
-        A = unscaled_cuts(self.layout, params, self._arrays[1])
-        return bool(np.all(np.diff(A, axis=1) > 0))
-
-    def min_gap(self, params):
-        """Smallest gap between adjacent unscaled cuts over the training rows."""
-        A = unscaled_cuts(self.layout, params, self._arrays[1])
-        return float(np.min(np.diff(A, axis=1), initial=np.inf))
+        return bool(np.all(np.isfinite(params)) and np.all(self.gaps(params) > 0))
 
     def sums(self, link, params, *, order=2):
         """Log-likelihood and, for ``order`` 1 or 2, its gradient and Hessian."""
@@ -269,8 +265,8 @@ class ExtendedDesign:
         if order == 0 or not np.isfinite(ll):
             return ll, None, None
         with np.errstate(over="ignore", invalid="ignore"):
-            du = end_jacobian(self.layout, params, self._arrays, U, sigma, self.y)[1]
-            dl = end_jacobian(self.layout, params, self._arrays, U, sigma, self.y - 1)[1]
+            du = end_jacobian(self.layout, self._arrays, U, sigma, self.y)[1]
+            dl = end_jacobian(self.layout, self._arrays, U, sigma, self.y - 1)[1]
         gu, gl = _zero_missing(t["gu"]), _zero_missing(t["gl"])
         g = du.T @ (w * gu) + dl.T @ (w * gl)
         if order < 2:

@@ -22,7 +22,7 @@ import numpy as np
 
 from .design import check_collinear, prepare, split_formula, threshold_labels
 from .exceptions import CrossingError, CrossingWarning, OrdinalDataError
-from .extended import ExtendedDesign, ModelLayout, unscaled_cuts
+from .extended import ExtendedDesign, ModelLayout
 from .fitting import _covariance, _second_start, _separation_check, closed_form_thresholds, standardise
 from .links import get_link
 from .optimize import ascent_direction, check_convergence, newton_maximize
@@ -157,16 +157,17 @@ def _crossing_failure(design, outcome, layout):
     """Whether a failed fit stopped on the boundary where observed cuts meet."""
     if not layout.nonparallel or not np.all(np.isfinite(outcome.grad)):
         return False
+    gaps = design.gaps(outcome.params)
+    if gaps.size == 0:
+        return False
     step, _ = ascent_direction(outcome.grad, outcome.hess)
-    A = unscaled_cuts(layout, outcome.params, design._arrays[1])
-    gaps = np.diff(A, axis=1)
-    tight = design.min_gap(outcome.params) < 1e-3 * max(float(np.median(gaps)), 1e-12)
+    tight = gaps.min(initial=np.inf) < 1e-3 * max(float(np.median(gaps)), 1e-12)
     return tight or not design.feasible(outcome.params + step)
 
 
 def _raise_crossing(layout, design, params):
     cols = ", ".join(layout.columns[i] for i in layout.nonparallel)
-    gaps = np.diff(unscaled_cuts(layout, params, design._arrays[1]), axis=1)
+    gaps = design.gaps(params)
     tight = gaps <= 1e-3 * max(float(np.median(gaps)), 1e-12)
     t = layout.thresholds
     where = "; ".join(f"{t[j]} and {t[j + 1]} for {int(tight[:, j].sum())} rows"
