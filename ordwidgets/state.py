@@ -67,7 +67,7 @@ class FitState(tl.HasTraits):
     baseline = tl.Dict(help="Predictor values of the comparison case (same defaults).")
     focus = tl.Unicode("", help="Predictor on the explorer's x-axis.")
     residual_draws = tl.Int(1, min=1, max=50, help="Surrogate residual draws per row.")
-    residual_seed = tl.Int(0, min=0, help="Seed of the surrogate residual draws.")
+    residual_seed = tl.Int(2718, min=0, help="Seed of the surrogate residual draws (any fixed default).")
     selection = tl.Tuple(help="Positions (0..n_rows-1 of the fitted rows) brushed in the residual panel.")
     link_table = tl.List(help="Rows {link, loglik, aic, bic, error} for every link of the current spec.")
     busy = tl.Unicode("", help="What long work is running ('' when idle).")

@@ -41,6 +41,15 @@ def test_editors_set_scenario_and_baseline(panel):
     assert st.baseline == st.scenario
 
 
+def test_frontend_rounding_echo_is_not_an_edit(panel):
+    st = panel.state
+    editor, before = panel.editors["age"], dict(st.scenario)
+    editor.set_state({"value": round(st.scenario["age"] / editor.step) * editor.step})
+    assert st.scenario == before and st.scenario == st.baseline
+    editor.set_state({"value": st.scenario["age"] + 3 * editor.step})
+    assert st.scenario["age"] == editor.value != st.baseline["age"]
+
+
 def test_focus_dropdown_sets_state(panel):
     panel.focus_dropdown.value = "dose"
     assert panel.state.focus == "dose"

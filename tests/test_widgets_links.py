@@ -76,3 +76,12 @@ def test_background_link_table_shows_busy_then_rows(data):
     assert any("comparing links" in b for b in seen) and st.busy == ""
     assert len(st.link_table) == 5 and "loglik" in p.table.value
     p.close()
+
+
+def test_effects_table_states_the_sign_convention(panel):
+    table = panel.state.fit.table()  # reference: the core's estimate table
+    assert f"{table.loc['dose', 'estimate']:.4g}" in panel.effects.value
+    assert "positive = towards higher categories" in panel.effects.value
+    assert "&lt;script&gt;" in panel.effects.value and "<script>" not in panel.effects.value
+    panel.state.link = "probit"
+    assert f"{panel.state.fit.table().loc['dose', 'estimate']:.4g}" in panel.effects.value

@@ -82,3 +82,14 @@ def test_large_data_draws_at_most_5000_points():
     brush(p, [0, 4999])
     assert p.state.selection == (int(p._shown[0]), int(p._shown[4999]))
     p.close()
+
+
+def test_no_trend_on_data_from_the_model_itself():
+    """Surrogate residuals of a correct model are independent of x (Liu & Zhang 2018)."""
+    sim = simulate(n=4000, seed=8, hostile=False)
+    p = ow.ResidualPanel(ow.FitState(data=sim, formula=FORMULA))
+    for name in ("fitted eta (x'beta)", "age", "dose"):
+        p.x_choice.value = name
+        assert p.view.tests["trend"][1] > 0.01 and p.view.tests["spread"][1] > 0.01
+    assert abs(np.corrcoef(p.view.x, p.view.residuals[:, 0])[0, 1]) < 0.05
+    p.close()

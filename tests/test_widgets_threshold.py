@@ -38,6 +38,15 @@ def test_slider_edits_set_the_state_and_crossing_is_clamped(panel):
     check_threshold_panel(panel)
 
 
+def test_frontend_rounding_echo_is_not_an_edit(panel):
+    st, n0 = panel.state, panel.state.updates
+    slider = panel.sliders[1]
+    slider.set_state({"value": round(st.thresholds[1], 3)})  # what the browser sends after rendering
+    assert not st.edited and st.updates == n0
+    slider.set_state({"value": round(st.thresholds[1], 3) + 0.01})  # a real move of ten steps
+    assert st.edited and st.thresholds[1] == slider.value
+
+
 def test_reset_button_restores_fitted(panel):
     st = panel.state
     st.set_threshold(2, st.theta[2] + 1)

@@ -21,6 +21,7 @@ CSS classes (``add_class``) are stable hooks for browser tests and styling:
 ``ow-link-dropdown``        the link dropdown
 ``ow-link-table``           loglik / AIC / BIC of every link
 ``ow-model-controls``       per predictor: in/out, non-parallel, scale effect, PO test
+``ow-effects-table``        estimated effects with the sign convention
 ``ow-explorer``             :class:`ProbabilityExplorer`
 ``ow-explorer-figure``      the probability figure
 ``ow-focus-dropdown``       the x-axis predictor dropdown

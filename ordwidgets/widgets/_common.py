@@ -15,7 +15,7 @@ import ipywidgets as w
 import numpy as np
 
 __all__ = ["PanelBase", "esc", "category_colours", "make_figure", "figure_toolbar", "html_table",
-           "fmt", "rule_xy"]
+           "fmt", "rule_xy", "is_echo"]
 
 
 def esc(value) -> str:
@@ -70,6 +70,15 @@ def html_table(columns, rows, css="") -> str:
         "<tr>" + "".join(f"<td style='padding:1px 6px;text-align:right'>{esc(v)}</td>" for v in row) + "</tr>"
         for row in rows)
     return f"<table class='{esc(css)}' style='border-collapse:collapse;font-size:90%'><tr>{head}</tr>{body}</table>"
+
+
+def is_echo(slider, new, current) -> bool:
+    """Whether a slider change is the frontend rounding a value we sent to the slider step.
+
+    A browser slider snaps the value it receives to its step and sends it back; a move of
+    at most half a step is that echo, not a user's edit.
+    """
+    return isinstance(current, float) and abs(new - current) <= 0.5001 * slider.step
 
 
 def rule_xy(xs):

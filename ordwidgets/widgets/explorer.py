@@ -9,8 +9,8 @@ import numpy as np
 import pandas as pd
 
 from .._spec import grid_values
-from ..core import SIGN_CONVENTION
-from ._common import PanelBase, category_colours, esc, figure_toolbar, fmt, html_table, make_figure, rule_xy
+from ._common import (PanelBase, category_colours, esc, figure_toolbar, fmt, html_table, is_echo, make_figure,
+                      rule_xy)
 
 __all__ = ["ProbabilityExplorer", "expected_score", "interval_bands"]
 
@@ -34,6 +34,10 @@ def interval_bands(res, frame, level=0.95):
     if "lower" not in parts or "upper" not in parts:
         return None
     return out["lower"].to_numpy(float), out["upper"].to_numpy(float)
+
+
+def _short(value):
+    return fmt(value, 4) if isinstance(value, float) else value
 
 
 class ProbabilityExplorer(PanelBase):
@@ -210,9 +214,10 @@ class ProbabilityExplorer(PanelBase):
         return editor
 
     def _edited(self, name, value):
-        if self._syncing:
-            return
         which = self.target.value
+        if self._syncing or (isinstance(self.editors[name], w.FloatSlider)
+                             and is_echo(self.editors[name], value, getattr(self.state, which)[name])):
+            return
         setattr(self.state, which, {**getattr(self.state, which), name: value})
 
     # ---- what-if --------------------------------------------------------------------------------------
@@ -228,8 +233,8 @@ class ProbabilityExplorer(PanelBase):
         score = expected_score(probs)
         rows.append(["expected score (1..J)", fmt(score[0], 4), fmt(score[1], 4), f"{score[1] - score[0]:+.3f}"])
         changed = [k for k in self.state.scenario if self.state.scenario[k] != self.state.baseline.get(k)]
-        what = ", ".join(f"{k} = {v}" for k, v in self.state.scenario.items() if k in changed) or "no difference"
+        what = ", ".join(f"{k} = {_short(v)}" for k, v in self.state.scenario.items() if k in changed) or "no difference"
         self.whatif.value = (f"<b>What if</b> (scenario: {esc(what)})"
                              + html_table(["level", "baseline", "scenario", "difference"], rows)
-                             + f"<div style='font-size:85%;color:#555'>{esc(SIGN_CONVENTION)} "
-                               "Associations, not causes.</div>")
+                             + "<div style='font-size:85%;color:#555'>Differences are associations, not "
+                               "effects of changing a person's values.</div>")

@@ -6,7 +6,7 @@ import inspect
 import ipywidgets as w
 import numpy as np
 
-from ..core import fit as core_fit, link_names
+from ..core import SIGN_CONVENTION, fit as core_fit, link_names
 from ._common import PanelBase, esc, fmt, html_table
 
 __all__ = ["LinkSelector", "po_test_rows"]
@@ -34,7 +34,7 @@ class LinkSelector(PanelBase):
     """
 
     _dispatch = {
-        "fit": ("_update_dropdown", "_update_controls", "_request_tables"),
+        "fit": ("_update_dropdown", "_update_controls", "_update_effects", "_request_tables"),
         "error": ("_update_dropdown", "_update_controls"),
         "link_table": ("_update_table",),
     }
@@ -48,14 +48,15 @@ class LinkSelector(PanelBase):
         self.table.add_class("ow-link-table")
         self.controls = self.own(w.VBox())
         self.controls.add_class("ow-model-controls")
-        self.message, self.po_overall = self.own(w.HTML(), w.HTML())
+        self.message, self.po_overall, self.effects = self.own(w.HTML(), w.HTML(), w.HTML())
+        self.effects.add_class("ow-effects-table")
         self._rows, self._po = {}, {}
         supported = inspect.signature(core_fit).parameters
         self._can = {k: k in supported for k in ("nonparallel", "scale_by")}
         self.children = [w.HTML("<b>Link and model</b>"), self.dropdown, self.table,
                          w.HTML("<b>Predictors</b> (in model &middot; non-parallel &middot; scale effect "
                                 "&middot; proportional-odds test)"), self.controls, self.po_overall,
-                         self.message]
+                         self.message, self.effects]
         self.redraw_all()
 
     # ---- link -----------------------------------------------------------------------------------
@@ -89,6 +90,14 @@ class LinkSelector(PanelBase):
                   fmt(r.get("aic"), 8), fmt(r.get("bic"), 8), r.get("error", "")[:80]] for r in rows]
         self.table.value = html_table(["link", "loglik", "AIC", "BIC", "note"], cells)
 
+    def _update_effects(self):
+        table = self.state.fit.table()
+        rows = [[name, fmt(r["estimate"], 4), fmt(r["std_error"], 3), fmt(r["p_value"], 3)]
+                for name, r in table.loc[list(self.state.fit.coef_names)].iterrows()]
+        self.effects.value = ("<b>Effects</b> (positive = towards higher categories)"
+                              + html_table(["effect", "estimate", "std. error", "p-value"], rows)
+                              + f"<div style='font-size:85%;color:#555'>{esc(SIGN_CONVENTION)}</div>")
+
     # ---- model controls ------------------------------------------------------------------------------
     def _update_controls(self):
         names = self.state.predictors
@@ -104,17 +113,26 @@ class LinkSelector(PanelBase):
         self._update_po()
 
     def _make_rows(self, names):
+        for widgets in self._rows.values():
+            for widget in widgets:
+                widget.close()
         for row in self.controls.children:
             row.close()
-        self._rows = {}
-        for name in names:
-            boxes = [w.Checkbox(description=d, indent=False, layout=w.Layout(width="auto"))
-                     for d in ("in model", "non-parallel", "scale effect")]
-            for box in boxes:
-                box.observe(self._control_changed, names="value")
-            self._rows[name] = (*boxes, w.HTML())
-        self.controls.children = [w.HBox([w.Label(str(n), layout=w.Layout(width="110px")), *r])
-                                  for n, r in self._rows.items()]
+        self._rows = {name: self._row_widgets() for name in names}
+        self.controls.children = [self._row_box(n, r) for n, r in self._rows.items()]
+
+    def _row_widgets(self):
+        boxes = [w.Checkbox(description=d, indent=False, layout=w.Layout(width="auto", margin="0 10px 0 0"))
+                 for d in ("in model", "non-parallel", "scale effect")]
+        for box in boxes:
+            box.observe(self._control_changed, names="value")
+        return (*boxes, w.HTML(layout=w.Layout(margin="0 0 4px 16px")))
+
+    @staticmethod
+    def _row_box(name, widgets):
+        label = w.Label(str(name), layout=w.Layout(width="auto", min_width="90px", margin="0 10px 0 0"))
+        label.style.font_weight = "bold"
+        return w.VBox([w.HBox([label, *widgets[:3]]), widgets[3]])
 
     def _control_changed(self, change):
         if self._syncing:

@@ -5,7 +5,7 @@ import bqplot as bq
 import ipywidgets as w
 import numpy as np
 
-from ._common import PanelBase, category_colours, esc, figure_toolbar, fmt, make_figure, rule_xy
+from ._common import PanelBase, category_colours, esc, figure_toolbar, fmt, is_echo, make_figure, rule_xy
 
 __all__ = ["ThresholdPanel", "latent_range"]
 
@@ -42,7 +42,8 @@ class ThresholdPanel(PanelBase):
         self.slider_box = self.own(w.VBox())
         self.readout = self.own(w.HTML())
         self.readout.add_class("ow-loglik-readout")
-        self.reset_button = self.own(w.Button(description="reset thresholds", icon="undo"))
+        self.reset_button = self.own(w.Button(description="reset thresholds", icon="undo",
+                                              layout=w.Layout(width="auto", min_width="150px")))
         self.reset_button.add_class("ow-reset")
         self.reset_button.on_click(lambda _: self.state.reset_thresholds())
         self.legend = self.own(w.HTML())
@@ -105,7 +106,7 @@ class ThresholdPanel(PanelBase):
 
     def _slider_moved(self, i):
         def moved(change):
-            if self._syncing:
+            if self._syncing or is_echo(self.sliders[i], change["new"], self.state.thresholds[i]):
                 return
             value = self.state.set_threshold(i, change["new"])
             if value != change["new"]:
