@@ -42,7 +42,7 @@ def _brant_reference(X, y):
     """
     m = int(y.max())
     Xt = np.column_stack([np.ones(len(X)), X])
-    fits = [LogisticRegression(penalty=None, tol=1e-12, max_iter=10_000).fit(X, (y > j).astype(int)) for j in range(m)]
+    fits = [LogisticRegression(C=np.inf, tol=1e-12, max_iter=10_000).fit(X, (y > j).astype(int)) for j in range(m)]
     B = np.array([np.concatenate([f.intercept_, f.coef_[0]]) for f in fits])
     pi = np.column_stack([f.predict_proba(X)[:, 1] for f in fits])
     k = Xt.shape[1]
