@@ -176,3 +176,17 @@ def test_compare_warns_when_the_larger_fit_is_worse():
     with pytest.warns(ow.ConvergenceWarning, match="not at its maximum"):
         table = ow.compare(small, broken)
     assert np.isnan(table.loc["larger", "p_value"])
+
+
+def test_refits_refuse_a_display_sample_of_the_rows():
+    # A Dask fit keeps a sample of rows; refits on it are not comparable with res.loglik.
+    import dataclasses
+
+    df, _, _ = small_data(n=80, seed=9)
+    res = ow.fit("y ~ x + v", df)
+    sampled = dataclasses.replace(res, training=dataclasses.replace(res.training, sampled_from=10_000))
+    with pytest.raises(ValueError, match="profile interval needs every fitted row.*sample of 80 of 10,000"):
+        sampled.intervals(method="profile")
+    with pytest.raises(ValueError, match="proportional-odds test needs every fitted row"):
+        sampled.proportional_odds_test()
+    assert np.all(np.isfinite(sampled.intervals().to_numpy()))  # Wald needs no rows

@@ -31,7 +31,8 @@ import numpy as np
 from .links import get_link
 from .objective import row_terms
 
-__all__ = ["ModelLayout", "ExtendedDesign", "layout_of", "scale_name", "per_threshold_name", "effect_groups"]
+__all__ = ["ModelLayout", "ExtendedDesign", "layout_of", "scale_name", "per_threshold_name", "effect_groups",
+           "all_training_rows"]
 
 
 def per_threshold_name(column, threshold):
@@ -333,3 +334,16 @@ def model_facts(res) -> dict:
     if crossing:
         facts["cumulative probabilities cross"] = "; ".join(crossing)
     return facts
+
+
+def all_training_rows(res, what):
+    """The training rows of a fit, refusing a display sample (a Dask fit) with a clear error.
+
+    Refits and profiles compare log-likelihoods with ``res.loglik``, which only makes sense
+    on every row that was fitted.
+    """
+    tr = res._training()
+    if getattr(tr, "is_sample", False):
+        raise ValueError(f"{what} needs every fitted row, but this fit keeps {tr.describe()}; "
+                         "fit the rows as a pandas DataFrame for it")
+    return tr

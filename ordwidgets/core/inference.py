@@ -20,7 +20,7 @@ from scipy import optimize, stats
 
 from .effects import _check_level
 from .exceptions import ComparisonError, ConvergenceWarning, CrossingError
-from .extended import ExtendedDesign, layout_of
+from .extended import ExtendedDesign, all_training_rows, layout_of
 from .links import get_link, link_names
 from .optimize import newton_maximize
 
@@ -146,7 +146,7 @@ def profile_intervals(res, level=0.95, *, which=None):
         Parameter names to profile (default: all); the others are ``nan``.
     """
     _check_level(level)
-    tr = res._training()
+    tr = all_training_rows(res, "a profile interval")
     design = ExtendedDesign(layout_of(res), tr.X, tr.y, tr.weights)
     z = stats.norm.isf((1 - level) / 2)
     se = res.std_errors.to_numpy()

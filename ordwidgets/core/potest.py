@@ -25,7 +25,7 @@ from scipy import stats
 
 from .effects import probabilities_at
 from .exceptions import CrossingError
-from .extended import ModelLayout, layout_of
+from .extended import ModelLayout, all_training_rows, layout_of
 from .extfit import fit_layout
 
 __all__ = ["proportional_odds_test", "brant_test"]
@@ -139,6 +139,7 @@ def proportional_odds_test(res):
         ``brant_df``, ``brant_p_value``, ``max_prob_change``, ``mean_prob_change``,
         ``note``, ``brant_note``.
     """
+    all_training_rows(res, "the proportional-odds test")
     layout = layout_of(res)
     if not layout.location:
         raise ValueError("the fit has no parallel effect to test")
