@@ -126,16 +126,29 @@ class FitState(tl.HasTraits):
 
     @property
     def frame(self) -> pd.DataFrame:
-        """Rows of :attr:`data` used by the fit, in fit order."""
-        return self.data.loc[self.fit.training.index]
+        """Rows of :attr:`data` used by the fit, in fit order (kept until the next refit)."""
+        if self._frames.get("rows") is None:
+            self._frames["rows"] = self.data.loc[self.fit.training.index]
+        return self._frames["rows"]
 
     def is_categorical(self, name) -> bool:
         """Whether predictor ``name`` is treated as categorical (dropdown rather than slider)."""
         return _spec.is_categorical(self.data[name], name, self.formula)
 
     def scenario_frame(self, which="scenario", focus_values=None) -> pd.DataFrame:
-        """One-row frame of a scenario, or one row per ``focus_values`` of :attr:`focus`."""
+        """One-row frame of a scenario, or one row per ``focus_values`` of :attr:`focus`.
+
+        Frames are remembered until the next refit (treat them as read-only).
+        """
         values = dict(self.scenario if which == "scenario" else self.baseline)
+        key = (repr(sorted(values.items())), self.focus, None if focus_values is None else repr(list(focus_values)))
+        if key not in self._frames:
+            if len(self._frames) > 64:
+                self._frames = {"rows": self._frames.get("rows")}
+            self._frames[key] = self._build_frame(values, focus_values)
+        return self._frames[key]
+
+    def _build_frame(self, values, focus_values):
         n = 1 if focus_values is None else len(focus_values)
         frame = pd.DataFrame({k: [v] * n for k, v in values.items()})
         if focus_values is not None:
@@ -325,7 +338,7 @@ class FitState(tl.HasTraits):
         return core_fit(self.model_formula, self.data, link=self.link, **kwargs)
 
     def _install(self, res):
-        self._designs = {}
+        self._designs, self._frames = {}, {}
         self.fit = res
         self.error = ""
         self._good = {k: getattr(self, k) for k in _SPEC}

@@ -6,7 +6,6 @@ import inspect
 import bqplot as bq
 import ipywidgets as w
 import numpy as np
-import pandas as pd
 
 from .._spec import grid_values
 from ._common import (PanelBase, category_colours, esc, figure_toolbar, fmt, html_table, is_echo, make_figure,
@@ -224,8 +223,7 @@ class ProbabilityExplorer(PanelBase):
     def whatif_probabilities(self):
         """Category probabilities of the baseline and the scenario, shape (2, J)."""
         st = self.state
-        frame = pd.concat([st.scenario_frame("baseline"), st.scenario_frame("scenario")], ignore_index=True)
-        return st.probabilities(frame)
+        return np.vstack([st.probabilities(st.scenario_frame(which)) for which in ("baseline", "scenario")])
 
     def _update_whatif(self):
         probs = self.whatif_probabilities()
