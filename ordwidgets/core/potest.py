@@ -11,6 +11,13 @@ Two tests per predictor, plus an overall row:
   Brant derived it for the logit link; here the same sandwich is built with each link's
   own score weights ``f / (pi (1 - pi))`` (equal to 1 for the logit).
 
+**One at a time.**  Each likelihood-ratio row frees one predictor while the others stay
+parallel, so with correlated predictors the non-parallel effect of one can appear in the
+row of another (freeing the real culprit first makes it vanish; compare the fits with
+:func:`~ordwidgets.core.inference.compare`).  Brant's per-predictor statistic comes from
+binary fits in which every effect is free, so it does not borrow in this way; when the two
+disagree, trust neither row alone.
+
 **Large-n caution.**  Both are significance tests: with thousands of rows, departures from
 parallel effects too small to matter become "significant".  Judge them by the change in
 fitted probabilities that freeing the effect brings, reported as ``max_prob_change`` (the
