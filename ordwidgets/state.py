@@ -150,7 +150,7 @@ class FitState(tl.HasTraits):
 
     def _build_frame(self, values, focus_values):
         n = 1 if focus_values is None else len(focus_values)
-        frame = pd.DataFrame({k: [v] * n for k, v in values.items()})
+        frame = pd.DataFrame({k: [v] * n for k, v in values.items()}, index=pd.RangeIndex(n))
         if focus_values is not None:
             frame[self.focus] = list(focus_values)
         return _spec.match_dtypes(frame, self.data)

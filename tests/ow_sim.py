@@ -41,7 +41,7 @@ def manual_eta(res, frame):
 def scenario_rows(state, which="scenario", n=1):
     """A plain frame repeating a scenario ``n`` times."""
     values = getattr(state, which)
-    return pd.DataFrame({k: [v] * n for k, v in values.items()})
+    return pd.DataFrame({k: [v] * n for k, v in values.items()}, index=range(n))
 
 
 def html_values(widget):

@@ -161,3 +161,16 @@ def test_background_mode_keeps_every_view_in_step(data):
     assert st.busy == "" and any("updating residuals" in b for b in seen)
     check_all(d)
     d.close()
+
+
+@pytest.mark.parametrize("formula", ["rating ~ 1", "top ~ age + dose"])
+def test_intercept_only_and_binary_models(data, formula):
+    frame = data.assign(top=(data.rating.cat.codes == 3).astype(int))
+    d = ow.dashboard(ow.FitState(data=frame, formula=formula))
+    st = d.state
+    st.set_threshold(0, st.theta[0] + 0.3)
+    check_threshold_panel(d.threshold_panel)
+    check_residual_panel(d.residual_panel)
+    if st.focus:
+        check_explorer(d.explorer)
+    d.close()

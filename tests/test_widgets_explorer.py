@@ -92,3 +92,12 @@ def test_interval_bands_equal_the_core_intervals(panel):
     assert panel.ci.visible
     panel.state.set_threshold(0, panel.state.theta[0] + 0.2)
     assert not panel.ci.visible and "fitted thresholds only" in panel.note.value
+
+
+def test_no_predictor_left_hides_the_curves(panel):
+    panel.state.dropped = ("age", "dose", "group")
+    assert panel.state.focus == "" and "nothing to explore" in panel.note.value
+    assert not any(m.visible for m in (panel.bands, panel.lines, panel.ci, panel.marker))
+    panel.state.dropped = ()
+    assert panel.bands.visible and panel.marker.visible
+    check_explorer(panel)

@@ -135,7 +135,7 @@ class PanelBase(w.VBox):
 
     def close(self):
         """Unobserve the state and close everything the panel made."""
-        with contextlib.suppress(ValueError):
+        with contextlib.suppress(ValueError, AttributeError):
             self.state.unobserve(self._on_update, names="updates")
         for item in self._owned:
             item.close()

@@ -68,7 +68,7 @@ class Dashboard(w.VBox):
         for name, handler in (("updates", self._update_header), ("busy", self._update_busy)):
             with contextlib.suppress(ValueError):
                 self.state.unobserve(handler, names=name)
-        for panel in self.panels:
+        for panel in getattr(self, "panels", ()):
             panel.close()
         super().close()
 

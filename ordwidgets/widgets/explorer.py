@@ -124,7 +124,10 @@ class ProbabilityExplorer(PanelBase):
         st = self.state
         if not st.focus:
             self.note.value = "<i>no predictor in the model: nothing to explore</i>"
+            for mark in (self.bands, self.lines, self.ci, self.marker):
+                mark.visible = False
             return
+        self.marker.visible = True
         positions, values, categorical, frame = self.grid_frame()
         probs = st.probabilities(frame)
         colours = category_colours(probs.shape[1])
