@@ -34,7 +34,7 @@ def test_dashboard_renders_every_panel(tour):
     for css in ["ow-threshold-panel", "ow-link-selector", "ow-explorer", "ow-residual-panel", "ow-status"]:
         assert page.locator(f".ow-dashboard .{css}").count() == 1, css
     assert updates(page) >= 1  # the initial build was processed and counted
-    assert tour.page_errors == []
+    assert tour.page_errors == [] and tour.console_errors == []
 
 
 def test_keyboard_on_a_threshold_slider_redraws_density_and_loglik(tour):
@@ -55,7 +55,7 @@ def test_keyboard_on_a_threshold_slider_redraws_density_and_loglik(tour):
         page.keyboard.press("PageUp")
     wait_settled(page)
     screenshot(page.locator(".ow-threshold-panel"), "thresholds")
-    assert tour.page_errors == []
+    assert tour.page_errors == [] and tour.console_errors == []
 
 
 def test_switching_the_link_redraws_the_explorer(tour):
@@ -68,7 +68,7 @@ def test_switching_the_link_redraws_the_explorer(tour):
     assert "cloglog" in page.locator(".ow-dashboard").inner_text()
     screenshot(page.locator(".ow-link-selector"), "links")
     screenshot(page.locator(".ow-explorer"), "explorer")
-    assert tour.page_errors == []
+    assert tour.page_errors == [] and tour.console_errors == []
 
 
 def test_brushing_residuals_fills_the_selection_table(tour):
@@ -91,4 +91,4 @@ def test_brushing_residuals_fills_the_selection_table(tour):
                            arg=".ow-selection-table", timeout=60_000)
     assert table.locator("tr").count() > 1
     screenshot(page.locator(".ow-residual-panel"), "residuals")
-    assert tour.page_errors == []
+    assert tour.page_errors == [] and tour.console_errors == []

@@ -2,7 +2,8 @@
 
 Reference: what a reader of the served notebook sees.  Voila shows a failing cell as an
 error output and a stderr stream as red text; a JavaScript exception in a widget shows up as
-a page error.  None may appear, and every bqplot figure must be drawn (its marks as SVG paths).
+a page error or a console error (requests we block on purpose, to hosts other than
+localhost, are not counted).  None may appear, and every bqplot figure must be drawn (its marks as SVG paths).
 """
 import pytest
 
@@ -33,7 +34,7 @@ def test_notebook_renders_with_figures_and_no_errors(name, open_page, voila_note
     assert drawn >= FIGURES[name]
     assert error_outputs(page) == []
     assert "Traceback" not in page.inner_text("#rendered_cells")
-    assert watch.page_errors == []
+    assert watch.page_errors == [] and watch.console_errors == []
     css, index, shot, _ = SHOTS[name]
     page.mouse.move(0, 0)
     screenshot(page.locator(css).nth(index), shot)
