@@ -157,12 +157,21 @@ def _predictors(n, rng):
     })
 
 
+def _linear_predictor(frame, effects):
+    """``x'beta`` of the parallel effects; ``species[T.maple]`` is the maple indicator."""
+    eta = np.zeros(len(frame))
+    species = frame["species"].astype(str).to_numpy()
+    for name, b in effects.items():
+        if name.startswith("species[T."):
+            eta += b * (species == name[len("species[T."):-1])
+        else:
+            eta += b * frame[name].to_numpy(float)
+    return eta
+
+
 def _cumulative(frame, truth):
     """True ``P(grade <= j)`` for each row, shape ``(n, J - 1)``, written out with scipy."""
-    eta = sum(frame[c].to_numpy(float) * b for c, b in truth.effects.items() if c in frame)
-    for name, b in truth.effects.items():
-        if name.startswith("species[T."):
-            eta = eta + b * (frame["species"].astype(str).to_numpy() == name[10:-1])
+    eta = _linear_predictor(frame, truth.effects)
     shift = frame["arterial"].to_numpy(float)[:, None] * np.asarray(truth.nonparallel["arterial"])
     spread = np.exp(truth.scale["years"] * frame["years"].to_numpy(float))[:, None]
     return expit((np.asarray(truth.thresholds)[None, :] - eta[:, None] - shift) / spread)

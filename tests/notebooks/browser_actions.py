@@ -15,7 +15,7 @@ MAX_SCREENSHOT_BYTES = 300_000
 _UPDATES_JS = """([sel, n]) => {
   const el = document.querySelector(sel);
   const m = el && el.textContent.match(/updates:\\s*(\\d+)/);
-  return m !== null && m !== undefined && m && Number(m[1]) > n;
+  return m ? Number(m[1]) > n : false;
 }"""
 
 _PATHS_JS = """(sel) => Array.from(document.querySelectorAll(sel)).map(p => p.getAttribute('d')).join('|')"""

@@ -8,7 +8,6 @@ Chromium is installed, unless ``OW_REQUIRE_BROWSER=1`` (set in CI), where they f
 from __future__ import annotations
 
 import os
-import shutil
 import signal
 import socket
 import subprocess
