@@ -92,8 +92,10 @@ def parse_file(path) -> dict:
         size = os.path.getsize(path)
         if size > MAX_BYTES:
             raise StateFileError(f"state file is {size:,} bytes; at most {MAX_BYTES:,} accepted")
-        with open(path, "r", encoding="utf-8") as fh:
-            text = fh.read()
+        with open(path, "r", encoding="utf-8") as fh:  # read at most the limit (devices, pipes)
+            text = fh.read(MAX_BYTES + 1)
+        if len(text) > MAX_BYTES:
+            raise StateFileError(f"state file holds more than {MAX_BYTES:,} bytes")
         doc = json.loads(text, parse_constant=_refuse_constant)
     except StateFileError:
         raise

@@ -4,6 +4,8 @@ import json
 import numpy as np
 import pytest
 import traitlets
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as hst
 
 import ordwidgets as ow
 from ordwidgets.state import FitState
@@ -165,6 +167,8 @@ def test_oversized_file_refused(data, tmp_path):
     path.write_text(" " * 2_000_001)
     with pytest.raises(StateFileError, match="bytes"):
         FitState.load(path, data)
+    with pytest.raises(StateFileError, match="bytes"):  # a device reports size 0 and never ends
+        FitState.load("/dev/zero", data)
 
 
 def test_random_edits_keep_the_state_consistent(state):
@@ -210,3 +214,15 @@ def test_data_and_options_changes_refit(data):
     assert st.loglik == pytest.approx(ref.loglik)
     st.set_threshold(1, st.theta[1] + 0.2)  # weighted loglik at edited thresholds
     assert st.loglik == pytest.approx(ref.loglik_at(thresholds=st.theta), abs=1e-9)
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(moves=hst.lists(hst.tuples(hst.integers(0, 2), hst.floats(-50, 50, allow_nan=False)), min_size=1, max_size=25))
+def test_any_slider_sequence_keeps_order_and_exact_loglik(state, moves):
+    for i, value in moves:
+        state.set_threshold(i, value)
+        assert np.all(np.diff(state.theta) > 0)
+    # reference: the core's loglik at the same thresholds (no incremental bookkeeping)
+    assert state.loglik == pytest.approx(state.fit.loglik_at(thresholds=state.theta), rel=1e-12, abs=1e-9)
+    state.reset_thresholds()
+    assert state.loglik == state.fit.loglik

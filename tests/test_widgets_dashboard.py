@@ -127,6 +127,9 @@ def test_closing_unobserves_the_state(data):
     assert all(not p.observing for p in d.panels)
     st.set_threshold(0, st.theta[0] - 0.3)  # the closed dashboard is not touched
     assert d.threshold_panel.curve.comm is None
+    leftovers = [x for p in d.panels for x in (*p.children, *d.threshold_panel.sliders, *d.explorer.editors.values(),
+                                               d.residual_panel.brush, d.explorer.x_axis) if x.comm is not None]
+    assert leftovers == []  # sliders, editors, toolbars, selectors and axes are closed too
 
 
 def test_dashboard_state_round_trips_through_a_file(dash, data, tmp_path):

@@ -87,6 +87,18 @@ def rule_xy(xs):
     return np.column_stack([xs, xs]), np.tile([0.0, 1.0], (len(xs), 1))
 
 
+def _descendants(widget):
+    """Every widget below ``widget``: box children, and a figure's marks, axes and interaction."""
+    out = []
+    parts = list(getattr(widget, "children", ()))
+    if isinstance(widget, bq.Figure):
+        parts += list(widget.marks) + list(widget.axes) + [widget.interaction, widget.scale_x, widget.scale_y]
+    for part in parts:
+        if isinstance(part, w.Widget):
+            out += [part, *_descendants(part)]
+    return out
+
+
 class PanelBase(w.VBox):
     """Base of the panels: one observer on the state, dispatch on what changed.
 
@@ -134,10 +146,10 @@ class PanelBase(w.VBox):
         return widgets[0] if len(widgets) == 1 else widgets
 
     def close(self):
-        """Unobserve the state and close everything the panel made."""
+        """Unobserve the state and close everything the panel made (widgets, marks, scales)."""
         with contextlib.suppress(ValueError, AttributeError):
             self.state.unobserve(self._on_update, names="updates")
-        for item in self._owned:
+        for item in [*_descendants(self), *self._owned]:
             item.close()
         self._owned = []
         super().close()
