@@ -146,6 +146,16 @@ def test_dashboard_state_round_trips_through_a_file(dash, data, tmp_path):
     again.close()
 
 
+def test_background_choice(data):
+    res = ow.fit(FORMULA, data)
+    made = [ow.dashboard(res, data=data), ow.dashboard(ow.FitState.from_fit(res, data=data)),
+            ow.dashboard(ow.FitState.from_fit(res, data=data), background=True)]
+    assert [d.state.executor is not None for d in made] == [True, False, True]
+    for d in made:
+        d.state.close()
+        d.close()
+
+
 def test_dashboard_refuses_other_objects():
     with pytest.raises(TypeError, match="FitState or a FitResult"):
         ow.dashboard("not a fit")

@@ -73,7 +73,7 @@ class Dashboard(w.VBox):
         super().close()
 
 
-def dashboard(state_or_fit, *, data=None, background=True):
+def dashboard(state_or_fit, *, data=None, background=None):
     """Compose the four panels on one state.
 
     Parameters
@@ -82,17 +82,23 @@ def dashboard(state_or_fit, *, data=None, background=True):
         An existing state, or a fit to wrap (see :meth:`FitState.from_fit`).
     data : pandas.DataFrame, optional
         The data of a fit that does not hold its own frame.
-    background : bool
-        For a new state: compute the link comparison and other long work in a background
-        thread (busy indicator shown meanwhile).  ``False`` runs everything inline.
+    background : bool, optional
+        Run long work (link comparison, proportional-odds tests, the residual refresh after
+        an edit) in a background thread, with the busy indicator shown meanwhile.  Default:
+        yes for a new state; a given state keeps its own ``executor``.  ``True`` gives a
+        state without one a background executor; ``False`` runs everything inline.
 
     Returns
     -------
     Dashboard
     """
     if isinstance(state_or_fit, FitResult):
-        executor = ThreadPoolExecutor(max_workers=2, thread_name_prefix="ow-long") if background else None
-        state_or_fit = FitState.from_fit(state_or_fit, data=data, executor=executor)
+        state_or_fit = FitState.from_fit(state_or_fit, data=data)
+        background = True if background is None else background
     if not isinstance(state_or_fit, FitState):
         raise TypeError(f"dashboard needs a FitState or a FitResult, got {type(state_or_fit).__name__}")
+    if background and state_or_fit.executor is None:
+        state_or_fit.executor = ThreadPoolExecutor(max_workers=2, thread_name_prefix="ow-long")
+    elif background is False:
+        state_or_fit.executor = None
     return Dashboard(state_or_fit)
