@@ -384,22 +384,23 @@ class FitState(tl.HasTraits):
         """Run ``work()`` then ``done(result)``: inline without an executor, else in it.
 
         An exception raised by ``work`` is passed to ``done`` as the result.  ``busy`` holds
-        ``label`` meanwhile.  Results of work started for an older fit are
-        dropped (``done`` is not called).
+        ``label`` meanwhile.  Results of work started for an older fit, or cancelled by
+        :meth:`close`, are dropped (``done`` is not called).
         """
         fit_then = self.fit
         self._set_busy(label, True)
 
-        def finish(result):
+        def finish(result, cancelled=False):
             with self._lock:
                 self._set_busy(label, False)
-                if self.fit is fit_then:
+                if self.fit is fit_then and not cancelled:
                     done(result)
 
         if self.executor is None:
             finish(_result_or_error(work))
             return
-        self.executor.submit(_result_or_error, work).add_done_callback(lambda fut: finish(fut.result()))
+        future = self.executor.submit(_result_or_error, work)
+        future.add_done_callback(lambda f: finish(None, True) if f.cancelled() else finish(f.result()))
 
     def run_inline(self, label, work):
         """Run ``work()`` now with ``busy`` showing ``label`` (the frontend sees it at once)."""

@@ -226,3 +226,26 @@ def test_any_slider_sequence_keeps_order_and_exact_loglik(state, moves):
     assert state.loglik == pytest.approx(state.fit.loglik_at(thresholds=state.theta), rel=1e-12, abs=1e-9)
     state.reset_thresholds()
     assert state.loglik == state.fit.loglik
+
+
+def test_long_work_background_stale_and_cancelled(data):
+    import threading
+    from concurrent.futures import ThreadPoolExecutor
+
+    pool = ThreadPoolExecutor(1)
+    st = FitState(data=data, formula=FORMULA, executor=pool)
+    gate, results = threading.Event(), []
+    st.run_long("first", lambda: gate.wait(5) and "first done", results.append)
+    st.run_long("queued", lambda: "never", results.append)
+    assert st.busy == "first, queued"
+    st.close()  # cancels the queued job
+    gate.set()
+    pool.shutdown(wait=True)
+    assert results == ["first done"] and st.busy == ""
+    st2 = FitState(data=data, formula=FORMULA, executor=ThreadPoolExecutor(1))
+    gate2 = threading.Event()
+    st2.run_long("stale", lambda: gate2.wait(5), results.append)
+    st2.link = "probit"  # the refit lands while the job still waits
+    gate2.set()
+    st2.executor.shutdown(wait=True)
+    assert results == ["first done"] and st2.busy == ""  # the result for the old fit is dropped
