@@ -22,9 +22,7 @@ class RowLoglik:
         tr = res.training
         self.link, self.weights = res.link, tr.weights
         self.eta = res.linear_predictor()
-        order = np.argsort(tr.y, kind="stable")
-        edges = np.searchsorted(tr.y[order], np.arange(len(res.levels) + 1))
-        self.rows = [order[a:b] for a, b in zip(edges[:-1], edges[1:])]
+        self.rows = [np.flatnonzero(tr.y == k) for k in range(len(res.levels))]  # linear in n
         self.theta = res.thresholds.to_numpy().copy()
         self.logp = interval_logprob(res.link, *res.error_bounds())
 
