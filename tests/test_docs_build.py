@@ -25,7 +25,8 @@ def api_dir(tmp_path_factory):
     out = tmp_path_factory.mktemp("api")
     # -o: treat the install stamp (spelled as in the Makefile) as up to date, so the test never
     # reinstalls the package; the dry run proves that only pdoc would run
-    cmd = ["make", "-o", ".venv/.installed-stamp", "docs", f"APIDIR={out}", f"PY={sys.executable}"]
+    cmd = ["make", "--no-print-directory", "-o", ".venv/.installed-stamp", "docs",
+           f"APIDIR={out}", f"PY={sys.executable}"]
     planned = subprocess.run(cmd[:1] + ["-n"] + cmd[1:], cwd=REPO, check=True, capture_output=True,
                              text=True, timeout=60).stdout.strip().splitlines()
     assert len(planned) == 1 and "pdoc" in planned[0] and "pip" not in planned[0], planned

@@ -17,7 +17,8 @@ pytestmark = pytest.mark.browser
 
 
 def make_demo_command(port):
-    return ["make", "-o", ".venv/.installed-stamp", "demo", f"PORT={port}", f"PY={sys.executable}"]
+    return ["make", "--no-print-directory", "-o", ".venv/.installed-stamp", "demo",
+            f"PORT={port}", f"PY={sys.executable}"]
 
 
 def test_make_demo_plans_only_the_server():
