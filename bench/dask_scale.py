@@ -7,14 +7,14 @@ Data: files of ``--part-rows`` rows each (default 1,000,000) under ``--dir`` (de
 ``/tmp/ordwidgets_dask_bench``, written once): a five-level response from a logistic
 latent model, two numeric predictors and a four-level text factor; the formula
 ``y ~ x1 + x2 + g`` has 5 effects and 4 thresholds.  For each n the first n / part-rows
-files are read with ``dask.dataframe.read_parquet`` and fitted with ``ow.fit`` on the local
+files are read with ``dask.dataframe.read_parquet`` and fitted with ``ow.fit_dask`` on the local
 threaded scheduler, in a fresh process so that its peak resident memory (``ru_maxrss``)
 belongs to that n alone.
 
 Printed per n: partitions, Newton steps, likelihood evaluations, passes over the data (two
-set-up passes plus one per evaluation; three with ``cache=True``), median seconds, rows per second (n / seconds, end to end),
-row-passes per second, peak RSS and its ratio to the smallest n.  Memory should follow
-the partition size, not n.  A second table repeats some sizes with ``cache=True`` (the
+set-up passes plus one per evaluation; three with ``cache=True``), median seconds, rows per
+second (n / seconds, end to end), row-passes per second, peak RSS and its ratio to the
+smallest n.  Memory should follow the partition size, not n.  A second table repeats some sizes with ``cache=True`` (the
 prepared design kept in memory between Newton steps: faster, memory grows with n).  For
 comparison the in-memory ``ow.fit`` on one partition read into pandas.
 """
@@ -82,8 +82,8 @@ def child(files, in_memory, cache):
             res = ow.fit_dask(FORMULA, dd.read_parquet([str(f) for f in files]), cache=cache)
     seconds = time.perf_counter() - start
     print(json.dumps({"seconds": seconds, "rss": peak_rss_mib(), "steps": res.iterations,
-                      "evals": len(evaluations), "passes": 3 if cache else 2 + len(evaluations), "loglik": res.loglik, "rows": res.n_rows,
-                      "converged": bool(res.converged)}))
+                      "evals": len(evaluations), "passes": 3 if cache else 2 + len(evaluations),
+                      "loglik": res.loglik, "rows": res.n_rows, "converged": bool(res.converged)}))
 
 
 def run_child(files, in_memory=False, cache=False):

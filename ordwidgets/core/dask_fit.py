@@ -220,8 +220,9 @@ def _fit(formula, rhs, plan, runner, show, lk, levels, max_iter, tol, sample_row
     fitted = _maximise(design, lk, m, max_iter, tol, show, formula)
     prep = PreparedData(np.empty((0, len(plan.names))), np.empty(0, np.intp), None, plan.levels_kept,
                         plan.names, plan.response, rhs, plan.spec, pd.RangeIndex(0), notes)
+    options = _options(plan.weights, levels, runner, sample_rows, seed, cache)
     result = _result(prep, lk, fitted, plan.mean, plan.sd, formula=formula, n_obs=float(counts.sum()),
-                     n_rows=scan["rows"], training=training, options=_options(plan.weights, levels, runner, sample_rows, seed, cache))
+                     n_rows=scan["rows"], training=training, options=options)
     show.show(f"done: {result.message}, log-likelihood {result.loglik:.8g}")
     return result
 
@@ -317,5 +318,5 @@ def _sample(parts, size, population):
     frame = pd.concat([q["frame"] for q in s]).iloc[pick]
     if not frame.index.is_unique:  # e.g. Parquet files each numbered from 0
         frame = frame.reset_index(drop=True)
-    whole = len(y) == population
-    return TrainingData(np.asfortranarray(X), y, w, frame.index, frame=frame, sampled_from=None if whole else population)
+    sampled_from = None if len(y) == population else population
+    return TrainingData(np.asfortranarray(X), y, w, frame.index, frame=frame, sampled_from=sampled_from)
