@@ -14,7 +14,7 @@ HOSTILE_RAW = ("<script>", "<b>bold</b>", "<i>low</i>")
 
 @pytest.fixture
 def dash(data):
-    d = ow.dashboard(ow.fit(FORMULA, data), data=data, background=False)
+    d = ow.dashboard(ow.fit(FORMULA, data), data=data)
     yield d
     d.close()
 
@@ -147,10 +147,14 @@ def test_dashboard_state_round_trips_through_a_file(dash, data, tmp_path):
 
 
 def test_background_choice(data):
-    res = ow.fit(FORMULA, data)
-    made = [ow.dashboard(res, data=data), ow.dashboard(ow.FitState.from_fit(res, data=data)),
-            ow.dashboard(ow.FitState.from_fit(res, data=data), background=True)]
-    assert [d.state.executor is not None for d in made] == [True, False, True]
+    from ordwidgets.widgets.dashboard import BACKGROUND_ROWS
+
+    res, big = ow.fit(FORMULA, data), simulate(n=BACKGROUND_ROWS, seed=2, hostile=False)
+    made = [ow.dashboard(res, data=data), ow.dashboard(ow.FitState.from_fit(res, data=data), background=True),
+            ow.dashboard(ow.fit(FORMULA, big), data=big)]
+    assert [d.state.executor is not None for d in made] == [False, True, True]
+    made[2].state.executor.shutdown(wait=True)
+    check_all(made[2])
     for d in made:
         d.state.close()
         d.close()

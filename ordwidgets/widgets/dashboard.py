@@ -7,14 +7,17 @@ from concurrent.futures import ThreadPoolExecutor
 import ipywidgets as w
 
 from ..core import SIGN_CONVENTION, FitResult
-from ..state import FitState
+from ..state import FitState, n_training
 from ._common import esc
 from .explorer import ProbabilityExplorer
 from .links import LinkSelector
 from .residuals import ResidualPanel
 from .threshold import ThresholdPanel
 
-__all__ = ["Dashboard", "dashboard", "CAUTION"]
+__all__ = ["Dashboard", "dashboard", "CAUTION", "BACKGROUND_ROWS"]
+
+#: From this many fitted rows on, :func:`dashboard` runs long work in a background thread.
+BACKGROUND_ROWS = 20_000
 
 CAUTION = ("These are associations, not causes. Check the fit (residuals, proportional-odds tests) "
            "before acting on a prediction, and defer to domain experts, local rules and licensed "
@@ -85,8 +88,9 @@ def dashboard(state_or_fit, *, data=None, background=None):
     background : bool, optional
         Run long work (link comparison, proportional-odds tests, the residual refresh after
         an edit) in a background thread, with the busy indicator shown meanwhile.  Default:
-        yes for a new state; a given state keeps its own ``executor``.  ``True`` gives a
-        state without one a background executor; ``False`` runs everything inline.
+        when the fit holds at least :data:`BACKGROUND_ROWS` rows or the state already has an
+        ``executor``.  ``True`` gives a state without one a background executor; ``False``
+        runs everything inline (deterministic, as in tests).
 
     Returns
     -------
@@ -94,9 +98,10 @@ def dashboard(state_or_fit, *, data=None, background=None):
     """
     if isinstance(state_or_fit, FitResult):
         state_or_fit = FitState.from_fit(state_or_fit, data=data)
-        background = True if background is None else background
     if not isinstance(state_or_fit, FitState):
         raise TypeError(f"dashboard needs a FitState or a FitResult, got {type(state_or_fit).__name__}")
+    if background is None:
+        background = state_or_fit.executor is not None or n_training(state_or_fit.fit) >= BACKGROUND_ROWS
     if background and state_or_fit.executor is None:
         state_or_fit.executor = ThreadPoolExecutor(max_workers=2, thread_name_prefix="ow-long")
     elif background is False:
