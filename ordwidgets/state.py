@@ -333,6 +333,10 @@ class FitState(tl.HasTraits):
         return {"fit", "thresholds", "scenario", "focus"}
 
     def _run_fit(self):
+        held = self.fit.training if self.fit is not None else None
+        if held is not None and held.is_sample:  # refitting the sample would pass for the whole fit
+            raise ValueError(f"the fit used all {self.fit.n_rows:,} rows of a Dask frame and the panels hold "
+                             f"{held.describe()}; refit with ow.fit on the Dask frame")
         kwargs = {k: v for k, v in self.options.items() if k in ("weights", "levels")}
         kwargs.update(_spec.model_kwargs(self.nonparallel, self.scale_by, self.included))
         return core_fit(self.model_formula, self.data, link=self.link, **kwargs)
