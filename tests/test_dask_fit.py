@@ -244,6 +244,8 @@ def test_dashboard_shows_a_dask_fit_through_its_sample(frame):
         expected = 2 * (_logistic_loglik(rd, rows, rd.thresholds) - _logistic_loglik(rd, rows, shown))
         np.testing.assert_allclose(board.state.lr_distance, expected, rtol=1e-9)
         assert "on a sample of 200 of 600 rows" in board.threshold_panel.readout.value
+        board.state.request_link_table()
+        assert "links compared on a sample of 200 of 600 rows" in board.link_selector.table.value
         board.state.link = "probit"  # a refit from the panels would see only the sample
         assert "refit refused" in board.state.error and "Dask frame" in board.state.error
         assert board.state.fit is rd and board.state.link == "logit"

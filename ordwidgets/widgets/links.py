@@ -88,7 +88,14 @@ class LinkSelector(PanelBase):
             return
         cells = [[("\u25b6 " if r["link"] == self.state.link else "") + r["link"], fmt(r.get("loglik"), 8),
                   fmt(r.get("aic"), 8), fmt(r.get("bic"), 8), r.get("error", "")[:80]] for r in rows]
-        self.table.value = html_table(["link", "loglik", "AIC", "BIC", "note"], cells)
+        self.table.value = html_table(["link", "loglik", "AIC", "BIC", "note"], cells) + self._sample_note()
+
+    def _sample_note(self):
+        res = self.state.fit
+        if res.n_training == res.n_rows:
+            return ""
+        return (f"<div style='font-size:85%;color:#8a5a00'>links compared on {esc(res.training.describe())} "
+                f"(the fit on all rows: log-likelihood {fmt(res.loglik, 8)})</div>")
 
     def _update_effects(self):
         table = self.state.fit.table()
