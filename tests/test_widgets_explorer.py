@@ -92,6 +92,8 @@ def test_interval_bands_equal_the_core_intervals(panel):
     assert panel.ci.visible
     panel.state.set_threshold(0, panel.state.theta[0] + 0.2)
     assert not panel.ci.visible and "fitted thresholds only" in panel.note.value
+    panel.view.value = "stacked"
+    assert panel.note.value == "" and not panel.ci.visible
 
 
 def test_no_predictor_left_hides_the_curves(panel):

@@ -83,7 +83,7 @@ class ProbabilityExplorer(PanelBase):
         self.ci = bq.Lines(x=[0.0, 1.0], y=[[0.0, 0.0]], scales=sc, fill="between", stroke_width=0,
                            visible=False)
         self.lines = bq.Lines(x=[0.0, 1.0], y=[[0.0, 0.0]], scales=sc, stroke_width=2, visible=False,
-                              display_legend=False)
+                              display_legend=True)
         self.marker = bq.Lines(x=[[0.0, 0.0]], y=[[0.0, 1.0]], scales=sc, colors=["#111111"],
                                line_style="dashed", stroke_width=2)
         self.x_axis = bq.Axis(scale=self.xs, label="")
@@ -132,7 +132,9 @@ class ProbabilityExplorer(PanelBase):
         probs = st.probabilities(frame)
         colours = category_colours(probs.shape[1])
         stacked = self.view.value == "stacked"
-        bands = None if stacked else self._bands(frame)
+        bands = None if stacked else self._interval_bands(frame)
+        if stacked:
+            self.note.value = ""
         with self.bands.hold_sync(), self.lines.hold_sync(), self.ci.hold_sync(), self.marker.hold_sync():
             self._draw_bands(positions, probs, colours, stacked)
             self._draw_lines(positions, probs, colours, stacked)
@@ -160,7 +162,7 @@ class ProbabilityExplorer(PanelBase):
         self.ci.fill_colors = [c for col in colours for c in (col, None)]
         self.ci.fill_opacities = [0.25] * (2 * len(colours))
 
-    def _bands(self, frame):
+    def _interval_bands(self, frame):
         if self.state.edited:
             self.note.value = "<i>interval bands are drawn at the fitted thresholds only (thresholds edited)</i>"
             return None
