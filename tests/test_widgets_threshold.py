@@ -72,3 +72,24 @@ def test_close_unobserves_and_closes_marks(data):
     p.close()
     assert not p.observing and p.curve.comm is None
     st.set_threshold(0, st.theta[0] - 0.5)  # no error from a closed panel
+
+
+@pytest.mark.parametrize("extra", [{"nonparallel": ("dose",)}, {"scale_by": ("age",)}])
+def test_extended_fits_show_the_core_probabilities(panel, extra):
+    import inspect
+
+    st = panel.state
+    if "nonparallel" not in inspect.signature(ow.fit).parameters:
+        pytest.skip("this core fits parallel models only")
+    with st.batch():
+        for name, value in extra.items():
+            setattr(st, name, value)
+    assert st.error == "" and "cut points at this scenario" in panel.note.value
+    probs = st.fit.predict(scenario_rows(st)).to_numpy()[0]  # reference: the core's own prediction
+    assert list(panel.labels.text) == [f"{q:.1%}" for q in probs]
+    cuts = np.atleast_2d(panel.rules.x)[:, 0]
+    assert np.all(np.diff(cuts) > 0)
+    # reference: the probability mass between the drawn rules under the drawn density
+    eta, sigma = panel.scenario_cuts()[:2]
+    mass = np.diff(np.concatenate([[0.0], st.fit.link.dist.cdf((cuts - eta) / sigma), [1.0]]))
+    np.testing.assert_allclose(mass, probs, atol=1e-12)

@@ -46,9 +46,9 @@ class ThresholdPanel(PanelBase):
                                               layout=w.Layout(width="auto", min_width="150px")))
         self.reset_button.add_class("ow-reset")
         self.reset_button.on_click(lambda _: self.state.reset_thresholds())
-        self.legend = self.own(w.HTML())
+        self.legend, self.note = self.own(w.HTML(), w.HTML())
         self.children = [w.HTML("<b>Thresholds on the latent scale</b>"), self.figure,
-                         figure_toolbar(self.figure, "latent"), self.legend, self.slider_box,
+                         figure_toolbar(self.figure, "latent"), self.legend, self.note, self.slider_box,
                          w.HBox([self.reset_button, self.readout])]
         self.redraw_all()
 
@@ -76,6 +76,9 @@ class ThresholdPanel(PanelBase):
         colours = category_colours(len(self.state.fit.levels))
         self.regions.colors, self.regions.fill_colors = colours, colours
         self.regions.fill_opacities = [0.5] * len(colours)
+        extended = getattr(self.state.fit, "layout", None) is not None
+        self.note.value = ("<i>non-parallel or scale effects: the rules are the cut points at this scenario; "
+                           "the sliders move the base thresholds</i>" if extended else "")
         self.legend.value = " ".join(
             f"<span style='background:{c};padding:0 6px;margin-right:4px;opacity:0.8'>{esc(lv)}</span>"
             for c, lv in zip(colours, self.state.fit.levels))
