@@ -103,3 +103,18 @@ def test_no_predictor_left_hides_the_curves(panel):
     panel.state.dropped = ()
     assert panel.bands.visible and panel.marker.visible
     check_explorer(panel)
+
+
+def test_non_parallel_fit_uses_the_core_predictions(panel):
+    import inspect
+
+    if "nonparallel" not in inspect.signature(ow.fit).parameters:
+        pytest.skip("this core fits parallel models only")
+    st = panel.state
+    st.nonparallel = ("dose",)
+    st.focus = "dose"
+    frame = panel.grid_frame()[3]
+    probs = st.fit.predict(frame).to_numpy()  # reference: the core's own prediction
+    np.testing.assert_allclose(np.asarray(panel.bands.y)[1:], np.cumsum(probs, axis=1).T.clip(0, 1), atol=1e-12)
+    ref = np.vstack([st.fit.predict(st.scenario_frame(w)).to_numpy() for w in ("baseline", "scenario")])
+    np.testing.assert_allclose(panel.whatif_probabilities(), ref, atol=1e-12)
