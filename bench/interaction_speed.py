@@ -66,7 +66,7 @@ def measure(n):
     data = simulate(n)
     out = {}
     inline = ow.FitState(data=data, formula=FORMULA)
-    dash = ow.dashboard(inline)
+    dash = ow.dashboard(inline, background=False)
     out["edit_inline"] = edits(inline)
     panel = dash.residual_panel
     out["residual_refresh"] = median_ms(lambda i: residual_view(
