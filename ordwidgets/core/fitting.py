@@ -12,7 +12,7 @@ import warnings
 import numpy as np
 
 from .dask_fit import is_dask_frame
-from .design import check_collinear, prepare, threshold_labels
+from .design import check_collinear_moments, prepare, threshold_labels
 from .exceptions import OrdinalDataError, SeparationWarning
 from .links import get_link
 from .objective import SortedDesign, sort_by_category
@@ -42,6 +42,41 @@ def standardise(X, weights=None):
     mean = (w @ X) / w.sum()
     sd = np.sqrt(np.maximum((w @ (X * X)) / w.sum() - mean**2, 0.0))
     return mean, np.where(sd > 0, sd, 1.0)
+
+
+def sorted_standardised(X, order, weights=None):
+    """Rows of ``X`` in ``order``, centred and scaled, with the weighted moments.
+
+    One gather into a column-major copy and one Gram product give the means, the covariance
+    (for the collinearity check) and the scaling; columns are first shifted by their first
+    value so that the moments do not cancel for columns far from zero.
+
+    Returns
+    -------
+    Xs : ndarray, shape (n, p), Fortran order
+    mean, sd : ndarray, shape (p,)
+    cov : ndarray, shape (p, p)
+        Weighted population covariance of the columns.
+    """
+    n, p = X.shape
+    Xs = np.empty((n, p), order="F")
+    for j in range(p):
+        np.take(X[:, j], order, out=Xs[:, j])
+    if p == 0 or n == 0:
+        return Xs, np.zeros(p), np.ones(p), np.zeros((p, p))
+    shift = Xs[0].copy()
+    Xs -= shift
+    if weights is None:
+        total, first, gram = float(n), Xs.sum(axis=0), Xs.T @ Xs
+    else:
+        total, first, gram = float(weights.sum()), weights @ Xs, Xs.T @ (Xs * weights[:, None])
+    centre = first / total
+    cov = gram / total - np.outer(centre, centre)
+    sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
+    sd = np.where(sd > 0, sd, 1.0)
+    Xs -= centre
+    Xs /= sd
+    return Xs, shift + centre, sd, cov
 
 
 def _to_user_scale(m, mean, sd):
@@ -113,13 +148,11 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
     J, p = len(prep.levels), prep.X.shape[1]
     m = J - 1
     check_enough_rows(prep.y.shape[0] if prep.weights is None else int(np.count_nonzero(prep.weights)), m + p)
-    check_collinear(prep.X, prep.columns, prep.weights)
-    mean, sd = standardise(prep.X, prep.weights)
     order, bounds = sort_by_category(prep.y, J)
-    Xs = prep.X[order]
-    Xs -= mean
-    Xs /= sd
-    design = SortedDesign(np.asfortranarray(Xs), bounds, None if prep.weights is None else prep.weights[order])
+    w_sorted = None if prep.weights is None else prep.weights[order]
+    Xs, mean, sd, cov = sorted_standardised(prep.X, order, w_sorted)
+    check_collinear_moments(prep.columns, mean, cov)
+    design = SortedDesign(Xs, bounds, w_sorted)
     fitted = _maximise(design, lk, m, max_iter, tol, callback, formula)
     training = TrainingData(prep.X, prep.y, prep.weights, prep.index) if keep_data else None
     return _result(prep, lk, fitted, mean, sd, formula=formula, n_obs=float(design.counts().sum()),
