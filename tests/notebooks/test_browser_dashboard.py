@@ -3,7 +3,8 @@
 Reference for each check is what the dashboard promises its user (docs/user_guide.md): a
 threshold slider moved with the keyboard (the WAI-ARIA slider pattern: arrow keys step the
 value) redraws the latent plot and the log-likelihood readout; choosing another link redraws
-the probability explorer; dragging a box over residual points lists those rows.  Each
+the probability explorer; dragging a box over residual points lists those rows; ticking a
+predictor's scale effect in the model controls refits and redraws the residuals.  Each
 interaction waits for the status counter, so the kernel has really processed it.
 Screenshots for the user guide are saved along the way.
 """
@@ -91,4 +92,19 @@ def test_brushing_residuals_fills_the_selection_table(tour):
                            arg=".ow-selection-table", timeout=60_000)
     assert table.locator("tr").count() > 1
     screenshot(page.locator(".ow-residual-panel"), "residuals")
+    assert tour.page_errors == [] and tour.console_errors == []
+
+
+def test_model_controls_refit_with_a_scale_effect(tour):
+    # the check-and-fix loop without leaving the dashboard: tick "scale effect" for years
+    page = tour.page
+    box = page.locator(".ow-model-controls .widget-hbox:has(.widget-label:text-is('years')) "
+                       "label:has-text('scale effect') input")
+    before = path_data(page, ".ow-residual-figure path.line")
+    count = updates(page)
+    box.check()
+    wait_updates_above(page, count)
+    page.wait_for_function("(sel) => document.querySelector(sel).innerText.includes('scale: years')",
+                           arg=".ow-link-selector", timeout=60_000)
+    wait_paths_change(page, ".ow-residual-figure path.line", before)
     assert tour.page_errors == [] and tour.console_errors == []
