@@ -87,3 +87,23 @@ def wait_settled(page, quiet_ms=1500, limit_ms=WAIT_MS, root=".ow-dashboard"):
         if still >= quiet_ms:
             return last
     raise TimeoutError(f"the dashboard kept updating for {limit_ms} ms")
+
+
+def drag_box(page, root, start, end):
+    """Drag a brush over the residual plot in ``root`` between two fractions of its area.
+
+    ``start`` and ``end`` are ``(x, y)`` fractions of the brush overlay (0 = left/top).
+    """
+    area = page.locator(f"{root} .ow-residual-figure rect.overlay").first.bounding_box()
+    page.mouse.move(area["x"] + area["width"] * start[0], area["y"] + area["height"] * start[1])
+    page.mouse.down()
+    page.mouse.move(area["x"] + area["width"] * end[0], area["y"] + area["height"] * end[1], steps=12)
+    page.mouse.up()
+    page.mouse.move(0, 0)
+
+
+def wait_selection(page, root=".ow-dashboard"):
+    """Wait (bounded) until the selection table reports brushed rows."""
+    page.wait_for_function(
+        "(sel) => /[1-9][0-9,]* selected rows/.test(document.querySelector(sel).innerText)",
+        arg=f"{root} .ow-selection-table", timeout=WAIT_MS)

@@ -124,13 +124,21 @@ class PageWatch:
         page.on("console", self._console)
 
     def _console(self, msg):
-        if msg.type == "error" and "net::ERR_FAILED" not in msg.text and "Failed to load resource" not in msg.text:
-            self.console_errors.append(msg.text)
+        url = (msg.location or {}).get("url", "")
+        blocked = "Failed to load resource" in msg.text and not is_local(url)
+        if msg.type == "error" and not blocked:  # requests we abort on purpose are not errors
+            self.console_errors.append(f"{msg.text} ({url})")
+
+
+def is_local(url) -> bool:
+    """True for URLs of this machine (and data: URLs), which the tests let through."""
+    host = url.split("/")[2] if "//" in url else ""
+    return host.split(":")[0] in {"127.0.0.1", "localhost"} or url.startswith("data:")
 
 
 def local_only(route):
-    host = route.request.url.split("/")[2] if "//" in route.request.url else ""
-    if host.split(":")[0] in {"127.0.0.1", "localhost"} or route.request.url.startswith("data:"):
+    """Playwright route handler: abort every request that would leave this machine."""
+    if is_local(route.request.url):
         route.continue_()
     else:
         route.abort()

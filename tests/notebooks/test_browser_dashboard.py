@@ -10,8 +10,8 @@ Screenshots for the user guide are saved along the way.
 """
 import pytest
 
-from browser_actions import (path_data, screenshot, updates, wait_figures, wait_paths_change,
-                             wait_settled, wait_updates_above)
+from browser_actions import (drag_box, path_data, screenshot, updates, wait_figures,
+                             wait_paths_change, wait_selection, wait_settled, wait_updates_above)
 from nbharness import rendered_page
 
 pytestmark = pytest.mark.browser
@@ -80,16 +80,10 @@ def test_brushing_residuals_fills_the_selection_table(tour):
     page.wait_for_function("(sel) => document.querySelector(sel).textContent.includes('years')",
                            arg=".ow-residual-figure text.axislabel", timeout=60_000)
     count = updates(page)
-    area = page.locator(".ow-residual-figure rect.overlay").first.bounding_box()
     # old trees with large residuals; start low so the figure's hover toolbar (top right) is not hit
-    page.mouse.move(area["x"] + area["width"] * 0.75, area["y"] + area["height"] * 0.42)
-    page.mouse.down()
-    page.mouse.move(area["x"] + area["width"] * 0.98, area["y"] + area["height"] * 0.12, steps=12)
-    page.mouse.up()
-    page.mouse.move(0, 0)
+    drag_box(page, ".ow-dashboard", (0.75, 0.42), (0.98, 0.12))
     wait_updates_above(page, count)
-    page.wait_for_function("(sel) => /[1-9][0-9,]* selected rows/.test(document.querySelector(sel).innerText)",
-                           arg=".ow-selection-table", timeout=60_000)
+    wait_selection(page)
     assert table.locator("tr").count() > 1
     screenshot(page.locator(".ow-residual-panel"), "residuals")
     assert tour.page_errors == [] and tour.console_errors == []

@@ -8,7 +8,7 @@ innerHTML, as noted for ipywidgets' HTML widget).
 import nbformat
 import pytest
 
-from browser_actions import error_outputs, wait_figures
+from browser_actions import drag_box, error_outputs, wait_figures, wait_selection
 from nbharness import voila_server
 
 pytestmark = pytest.mark.browser
@@ -42,16 +42,24 @@ def markup_url(tmp_path_factory):
         yield base + "/"
 
 
-def test_level_labels_with_markup_show_as_text(open_page, markup_url):
-    watch = open_page(markup_url)
-    page = watch.page
-    page.wait_for_selector(".ow-fit-result", timeout=120_000)
-    assert error_outputs(page) == []
-    wait_figures(page, ".ow-dashboard", 4)
+def assert_shown_as_text(page):
     text = page.inner_text("#rendered_cells")
     for label in HOSTILE:
         assert label in text, label
     assert page.locator("#rendered_cells b:text-is('bold')").count() == 0
     assert page.locator("#rendered_cells img[src='x']").count() == 0
     assert page.evaluate("window.__owInjected") is None
+
+
+def test_level_labels_with_markup_show_as_text(open_page, markup_url):
+    watch = open_page(markup_url)
+    page = watch.page
+    page.wait_for_selector(".ow-fit-result", timeout=120_000)
+    assert error_outputs(page) == []
+    wait_figures(page, ".ow-dashboard", 4)
+    assert_shown_as_text(page)
+    # the selection table lists each brushed row's level: brush nearly everything
+    drag_box(page, ".ow-dashboard", (0.02, 0.02), (0.98, 0.98))
+    wait_selection(page)
+    assert_shown_as_text(page)
     assert watch.page_errors == []

@@ -20,8 +20,8 @@ def run_without_chromium(folder, required):
         shutil.copy(HERE / name, folder / name)
     (folder / "test_needs_browser.py").write_text("def test_needs_browser(chromium):\n    pass\n")
     env = dict(os.environ, PATH=str(Path(sys.executable).parent), OW_REQUIRE_BROWSER=required)
-    return subprocess.run([sys.executable, "-m", "pytest", "-q", "-rsE", "-p", "no:cacheprovider", str(folder)],
-                          cwd=folder, env=env, capture_output=True, text=True, timeout=120)
+    cmd = [sys.executable, "-m", "pytest", "-q", "-rsE", "-p", "no:cacheprovider", str(folder)]
+    return subprocess.run(cmd, cwd=folder, env=env, capture_output=True, text=True, timeout=120)
 
 
 @pytest.mark.parametrize("required, outcome, message", [
