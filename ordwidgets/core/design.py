@@ -160,19 +160,26 @@ def unusable_rows(data, response, columns, w):
         ``{"missing": (rows, counts), "infinite": (rows, counts)}`` where ``counts`` is a
         Series of cells per column; tallies of disjoint row sets add up.
     """
-    frame = data[[response] + columns]
-    missing = frame.isna()
+    cols = {c: data[c] for c in [response] + columns}
     if w is not None:
-        missing = missing.assign(**{"(weights)": w.isna()})
-    bad = missing.any(axis=1)
-    tally = {"missing": (int(bad.sum()), missing.sum())}
-    num = [c for c in columns if pd.api.types.is_numeric_dtype(frame[c].dtype)]
-    if num:
-        values = frame[num].to_numpy(dtype=float, na_value=np.nan)
-        inf = pd.DataFrame(np.isinf(values), index=frame.index, columns=num) & ~missing[num]
-        rows = inf.any(axis=1)
-        tally["infinite"] = (int(rows.sum()), inf.sum())
-        bad = bad | rows
+        cols["(weights)"] = w
+    bad = np.zeros(len(data), dtype=bool)
+    counts = {}
+    for name, col in cols.items():
+        miss = col.isna().to_numpy()
+        counts[name] = int(miss.sum())
+        bad |= miss
+    tally = {"missing": (int(bad.sum()), pd.Series(counts))}
+    rows, counts = np.zeros(len(data), dtype=bool), {}
+    for c in columns:
+        if pd.api.types.is_numeric_dtype(data[c].dtype):
+            inf = np.isinf(data[c].to_numpy(dtype=float, na_value=np.nan))
+            counts[c] = int(inf.sum())
+            rows |= inf
+    if counts:
+        tally["infinite"] = (int(rows.sum()), pd.Series(counts))
+        bad |= rows
+    bad = pd.Series(bad, index=data.index)
     return ~bad, tally
 
 
@@ -261,7 +268,7 @@ def prepare(formula, data, *, weights=None, levels=None):
     _check_mixed(data, columns)
     w = _weights_array(weights, data)
     keep, notes = _drop_unusable(data, response, columns, w)
-    data = data.loc[keep]
+    data = data if bool(keep.all()) else data.loc[keep]
     y, lv = encode_response(data[response], levels, name=response)
     X, names, spec = _design_matrix(rhs, data)
     warr = None if w is None else w[keep].to_numpy(float)

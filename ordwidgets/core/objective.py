@@ -218,8 +218,9 @@ def _accumulate(g, H, t, k, m, Xs, w):
     """Add one segment's gradient and Hessian terms (chain rule through u and l).
 
     With ``u = theta_k - eta`` and ``l = theta_{k-1} - eta``: the threshold parts are
-    scalar sums, the threshold-effect block and the effect gradient come from one product
-    ``Xs' V`` with three weight columns, and the effect block is one weighted Gram product.
+    scalar sums, the threshold-effect block and the effect gradient are matrix-vector
+    products (measured faster here than one product with three columns), and the effect
+    block is one weighted Gram product.
     """
     zero = np.zeros(len(Xs))
     get = lambda key: zero if t[key] is None else t[key]  # noqa: E731
@@ -233,18 +234,13 @@ def _accumulate(g, H, t, k, m, Xs, w):
         g[m:] -= Xs.T @ (wt * (gu + gl))
         return
     huu, hll, hul = get("huu"), get("hll"), get("hul")
-    V = np.empty((len(Xs), 3))
-    V[:, 0] = wt * (gu + gl)
-    V[:, 1] = wt * (huu + hul)
-    V[:, 2] = wt * (hll + hul)
-    XV = Xs.T @ V
-    g[m:] -= XV[:, 0]
+    g[m:] -= Xs.T @ (wt * (gu + gl))
     if k < m:
         H[k, k] += _wsum(w, huu)
-        H[k, m:] -= XV[:, 1]
+        H[k, m:] -= Xs.T @ (wt * (huu + hul))
     if k > 0:
         H[k - 1, k - 1] += _wsum(w, hll)
-        H[k - 1, m:] -= XV[:, 2]
+        H[k - 1, m:] -= Xs.T @ (wt * (hll + hul))
     if 0 < k < m:
         c = _wsum(w, hul)
         H[k, k - 1] += c
