@@ -34,6 +34,19 @@ def test_from_fit_does_not_refit(data):
     assert st.fit is res and st.link == "probit"
 
 
+def test_from_fit_uses_the_frame_the_result_holds(data):
+    res = ow.fit(FORMULA, data)
+    assert res.training.frame is data  # no rows dropped: the caller's frame, not a copy
+    st = FitState.from_fit(res)
+    assert st.fit is res and st.data is data
+    dropped = data.copy()
+    dropped.iloc[0, dropped.columns.get_loc("age")] = np.nan
+    with pytest.warns(ow.DataWarning, match="dropped 1 rows"):
+        res2 = ow.fit(FORMULA, dropped)
+    assert len(res2.training.frame) == len(data) - 1
+    assert FitState.from_fit(res2).frame.index.equals(res2.training.index)
+
+
 def test_threshold_edit_is_cheap_and_exact(state):
     before = state.fit
     theta = state.theta.copy()

@@ -32,6 +32,7 @@ class PreparedData:
     model_spec: object | None
     index: pd.Index
     notes: list[str] = field(default_factory=list)
+    frame: pd.DataFrame | None = None  # the rows kept (the caller's frame itself when none dropped)
 
 
 def split_formula(formula):
@@ -274,7 +275,7 @@ def prepare(formula, data, *, weights=None, levels=None):
     warr = None if w is None else w[keep].to_numpy(float)
     y, lv, more = _drop_empty_levels(y, lv, warr, response)
     notes += more
-    return PreparedData(X, y, warr, lv, names, response, rhs, spec, data.index, notes)
+    return PreparedData(X, y, warr, lv, names, response, rhs, spec, data.index, notes, frame=data)
 
 
 def _drop_empty_levels(y, levels, w, response):

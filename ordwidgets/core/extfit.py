@@ -274,7 +274,7 @@ def fit_extended(formula, data, *, link="logit", weights=None, levels=None, max_
         loglik=out.loglik, n_obs=out.n_obs, n_rows=int(len(prep.y)), iterations=out.iterations,
         converged=out.converged, message=out.message, max_grad=out.max_grad, condition=out.condition,
         formula=formula, response=prep.response, model_spec=prep.model_spec, notes=tuple(prep.notes),
-        training=TrainingData(prep.X, prep.y, prep.weights, prep.index) if keep_data else None,
+        training=TrainingData(prep.X, prep.y, prep.weights, prep.index, frame=prep.frame) if keep_data else None,
         options={"weights": weights, "levels": levels, "nonparallel": nonparallel, "scale_by": scale_by,
                  "crossing": crossing},
         layout=layout,

@@ -154,7 +154,7 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
     check_collinear_moments(prep.columns, mean, cov)
     design = SortedDesign(Xs, bounds, w_sorted)
     fitted = _maximise(design, lk, m, max_iter, tol, callback, formula)
-    training = TrainingData(prep.X, prep.y, prep.weights, prep.index) if keep_data else None
+    training = TrainingData(prep.X, prep.y, prep.weights, prep.index, frame=prep.frame) if keep_data else None
     return _result(prep, lk, fitted, mean, sd, formula=formula, n_obs=float(design.counts().sum()),
                    n_rows=int(len(prep.y)), training=training, options={"weights": weights, "levels": levels})
 

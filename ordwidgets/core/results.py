@@ -29,6 +29,9 @@ class TrainingData:
     ``sampled_from`` is then the number of rows the sample was drawn from (``None`` when
     the rows are all the rows fitted), and everything computed from them without new data
     (``predict()``, ``error_bounds()``, ``loglik_at()``, residuals) refers to the sample.
+    ``frame`` is the data frame of those rows (for an in-memory fit the caller's own frame,
+    not a copy, when no row was dropped), which lets ``FitState.from_fit(res)`` work without
+    ``data=``.
     """
 
     X: np.ndarray
