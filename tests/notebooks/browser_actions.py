@@ -20,9 +20,9 @@ _UPDATES_JS = """([sel, n]) => {
 
 _PATHS_JS = """(sel) => Array.from(document.querySelectorAll(sel)).map(p => p.getAttribute('d')).join('|')"""
 
-_CHANGED_JS = """([sel, before]) => {
+_CHANGED_JS = """([sel, before, same]) => {
   const now = Array.from(document.querySelectorAll(sel)).map(p => p.getAttribute('d')).join('|');
-  return now !== before && now.length > 0;
+  return same ? now === before : (now !== before && now.length > 0);
 }"""
 
 
@@ -46,7 +46,12 @@ def path_data(page, selector) -> str:
 
 def wait_paths_change(page, selector, before):
     """Wait (bounded) until the paths under ``selector`` are redrawn differently."""
-    page.wait_for_function(_CHANGED_JS, arg=[selector, before], timeout=WAIT_MS)
+    page.wait_for_function(_CHANGED_JS, arg=[selector, before, False], timeout=WAIT_MS)
+
+
+def wait_paths_equal(page, selector, expected):
+    """Wait (bounded) until the paths under ``selector`` are drawn exactly as ``expected``."""
+    page.wait_for_function(_CHANGED_JS, arg=[selector, expected, True], timeout=WAIT_MS)
 
 
 def wait_figures(page, root, minimum):
@@ -94,7 +99,9 @@ def drag_box(page, root, start, end):
 
     ``start`` and ``end`` are ``(x, y)`` fractions of the brush overlay (0 = left/top).
     """
-    area = page.locator(f"{root} .ow-residual-figure rect.overlay").first.bounding_box()
+    overlay = page.locator(f"{root} .ow-residual-figure rect.overlay").first
+    overlay.scroll_into_view_if_needed()
+    area = overlay.bounding_box()
     page.mouse.move(area["x"] + area["width"] * start[0], area["y"] + area["height"] * start[1])
     page.mouse.down()
     page.mouse.move(area["x"] + area["width"] * end[0], area["y"] + area["height"] * end[1], steps=12)

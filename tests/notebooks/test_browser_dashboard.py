@@ -2,7 +2,7 @@
 
 Reference for each check is what the dashboard promises its user (docs/user_guide.md): a
 threshold slider moved with the keyboard (the WAI-ARIA slider pattern: arrow keys step the
-value) redraws the latent plot and the log-likelihood readout; choosing another link redraws
+value) redraws the latent plot and the log-likelihood readout, and reset draws the fitted plot again; choosing another link redraws
 the probability explorer; dragging a box over residual points lists those rows; ticking a
 predictor's scale effect in the model controls refits and redraws the residuals.  Each
 interaction waits for the status counter, so the kernel has really processed it.
@@ -11,7 +11,8 @@ Screenshots for the user guide are saved along the way.
 import pytest
 
 from browser_actions import (drag_box, path_data, screenshot, updates, wait_figures,
-                             wait_paths_change, wait_selection, wait_settled, wait_updates_above)
+                             wait_paths_change, wait_paths_equal, wait_selection, wait_settled,
+                             wait_updates_above)
 from nbharness import rendered_page
 
 pytestmark = pytest.mark.browser
@@ -56,6 +57,28 @@ def test_keyboard_on_a_threshold_slider_redraws_density_and_loglik(tour):
         page.keyboard.press("PageUp")
     wait_settled(page)
     screenshot(page.locator(".ow-threshold-panel"), "thresholds")
+    # the reset button restores the fitted thresholds: the plot is drawn exactly as before
+    count = updates(page)
+    page.locator(".ow-reset button, button.ow-reset").first.click()
+    wait_updates_above(page, count)
+    wait_paths_equal(page, DENSITY, before_paths)
+    assert tour.page_errors == [] and tour.console_errors == []
+
+
+def test_brushing_residuals_fills_the_selection_table(tour):
+    page = tour.page
+    table = page.locator(".ow-selection-table")
+    assert "selected rows" not in table.inner_text()
+    page.locator(".ow-residual-panel select").first.select_option(label="years")
+    page.wait_for_function("(sel) => document.querySelector(sel).textContent.includes('years')",
+                           arg=".ow-residual-figure text.axislabel", timeout=60_000)
+    count = updates(page)
+    # the oldest trees; start low so the figure's hover toolbar (top right) is not hit
+    drag_box(page, ".ow-dashboard", (0.75, 0.97), (0.99, 0.12))
+    wait_updates_above(page, count)
+    wait_selection(page)
+    assert table.locator("tr").count() > 1
+    screenshot(page.locator(".ow-residual-panel"), "residuals")
     assert tour.page_errors == [] and tour.console_errors == []
 
 
@@ -69,23 +92,6 @@ def test_switching_the_link_redraws_the_explorer(tour):
     assert "cloglog" in page.locator(".ow-dashboard").inner_text()
     screenshot(page.locator(".ow-link-selector"), "links")
     screenshot(page.locator(".ow-explorer"), "explorer")
-    assert tour.page_errors == [] and tour.console_errors == []
-
-
-def test_brushing_residuals_fills_the_selection_table(tour):
-    page = tour.page
-    table = page.locator(".ow-selection-table")
-    assert "selected rows" not in table.inner_text()
-    page.locator(".ow-residual-panel select").first.select_option(label="years")
-    page.wait_for_function("(sel) => document.querySelector(sel).textContent.includes('years')",
-                           arg=".ow-residual-figure text.axislabel", timeout=60_000)
-    count = updates(page)
-    # old trees with large residuals; start low so the figure's hover toolbar (top right) is not hit
-    drag_box(page, ".ow-dashboard", (0.75, 0.42), (0.98, 0.12))
-    wait_updates_above(page, count)
-    wait_selection(page)
-    assert table.locator("tr").count() > 1
-    screenshot(page.locator(".ow-residual-panel"), "residuals")
     assert tour.page_errors == [] and tour.console_errors == []
 
 
