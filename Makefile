@@ -4,7 +4,7 @@ PY := $(VENV)/bin/python
 PORT ?= 8866
 STAMP := $(VENV)/.installed-stamp
 
-.PHONY: test demo lab bench docs clean
+.PHONY: test demo lab bench docs screenshots clean
 
 $(STAMP): pyproject.toml
 	test -x $(PY) || python3 -m venv $(VENV)
@@ -18,6 +18,10 @@ venv: $(STAMP)
 # pytest exits 5 when nothing was collected; that is a failure here, not a pass.
 test: $(STAMP)
 	$(PY) -m pytest tests
+
+# Re-take the user guide's screenshots (docs/img/*.png) from the real-browser tests.
+screenshots: $(STAMP)
+	OW_UPDATE_SCREENSHOTS=1 $(PY) -m pytest -m browser tests/notebooks
 
 demo: $(STAMP)
 	@echo "ordwidgets demo dashboard: http://127.0.0.1:$(PORT)/"

@@ -72,7 +72,10 @@ def error_outputs(page) -> list:
 
 
 def screenshot(locator, name) -> int:
-    """Save ``docs/img/<name>.png`` of one element; return its size in bytes."""
+    """Save ``<SCREENSHOT_DIR>/<name>.png`` of one element; return its size in bytes.
+
+    ``SCREENSHOT_DIR`` is docs/img under ``OW_UPDATE_SCREENSHOTS=1``, else a temporary folder.
+    """
     SCREENSHOT_DIR.mkdir(parents=True, exist_ok=True)
     path = SCREENSHOT_DIR / f"{name}.png"
     locator.screenshot(path=str(path), animations="disabled")
