@@ -118,3 +118,14 @@ def test_non_parallel_fit_uses_the_core_predictions(panel):
     np.testing.assert_allclose(np.asarray(panel.bands.y)[1:], np.cumsum(probs, axis=1).T.clip(0, 1), atol=1e-12)
     ref = np.vstack([st.fit.predict(st.scenario_frame(w)).to_numpy() for w in ("baseline", "scenario")])
     np.testing.assert_allclose(panel.whatif_probabilities(), ref, atol=1e-12)
+
+
+def test_legend_names_every_level_in_its_band_colour(panel):
+    # One chip per level, in the colour of that level's band (the fill colours, in order).
+    st = panel.state
+    chips = panel.legend.value.split("</span>")[:-1]
+    assert len(chips) == len(st.fit.levels)
+    for chip, colour in zip(chips, panel.bands.fill_colors):
+        assert f"background:{colour}" in chip
+    panel.view.value = "lines"
+    assert panel.legend.value.count("</span>") == len(st.fit.levels)

@@ -43,6 +43,13 @@ def category_colours(k) -> list:
     return ["#%02x%02x%02x" % tuple(int(round(c)) for c in row) for row in rgb][:k]
 
 
+def level_legend(levels, colours) -> str:
+    """HTML chips naming each level in its colour (labels escaped)."""
+    return " ".join(
+        f"<span style='background:{c};padding:0 6px;margin-right:4px;opacity:0.8'>{esc(lv)}</span>"
+        for c, lv in zip(colours, levels))
+
+
 def make_figure(marks, axes, css, title="", height="300px", **kwargs):
     """A bqplot figure with an explicit layout and our CSS class."""
     fig = bq.Figure(marks=marks, axes=axes, title=title, animation_duration=0,

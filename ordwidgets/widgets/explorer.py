@@ -8,8 +8,8 @@ import ipywidgets as w
 import numpy as np
 
 from .._spec import grid_values
-from ._common import (PanelBase, category_colours, esc, figure_toolbar, fmt, html_table, is_echo, make_figure,
-                      rule_xy)
+from ._common import (PanelBase, category_colours, esc, figure_toolbar, fmt, html_table, is_echo, level_legend,
+                      make_figure, rule_xy)
 
 __all__ = ["ProbabilityExplorer", "expected_score", "interval_bands"]
 
@@ -68,11 +68,11 @@ class ProbabilityExplorer(PanelBase):
         self.target.observe(lambda _: self._update_editors(), names="value")
         self.copy_button = self.own(w.Button(description="baseline = scenario"))
         self.copy_button.on_click(lambda _: setattr(self.state, "baseline", dict(self.state.scenario)))
-        self.editor_box, self.whatif, self.note = self.own(w.VBox(), w.HTML(), w.HTML())
+        self.editor_box, self.whatif, self.note, self.legend = self.own(w.VBox(), w.HTML(), w.HTML(), w.HTML())
         self.whatif.add_class("ow-whatif-table")
         self._build_figure()
         self.children = [w.HTML("<b>Category probabilities</b>"), w.HBox([self.focus_dropdown, self.view]),
-                         self.figure, figure_toolbar(self.figure, "probabilities"), self.note,
+                         self.figure, self.legend, figure_toolbar(self.figure, "probabilities"), self.note,
                          w.HBox([self.target, self.copy_button]), self.editor_box, self.whatif]
         self.redraw_all()
 
@@ -82,8 +82,7 @@ class ProbabilityExplorer(PanelBase):
         self.bands = bq.Lines(x=[0.0, 1.0], y=[[0.0, 0.0]], scales=sc, fill="between", stroke_width=0.5)
         self.ci = bq.Lines(x=[0.0, 1.0], y=[[0.0, 0.0]], scales=sc, fill="between", stroke_width=0,
                            visible=False)
-        self.lines = bq.Lines(x=[0.0, 1.0], y=[[0.0, 0.0]], scales=sc, stroke_width=2, visible=False,
-                              display_legend=True)
+        self.lines = bq.Lines(x=[0.0, 1.0], y=[[0.0, 0.0]], scales=sc, stroke_width=2, visible=False)
         self.marker = bq.Lines(x=[[0.0, 0.0]], y=[[0.0, 1.0]], scales=sc, colors=["#111111"],
                                line_style="dashed", stroke_width=2)
         self.x_axis = bq.Axis(scale=self.xs, label="")
@@ -151,6 +150,9 @@ class ProbabilityExplorer(PanelBase):
     def _draw_lines(self, x, probs, colours, stacked):
         self.lines.x, self.lines.y, self.lines.colors = x, probs.T, colours
         self.lines.labels = [str(v) for v in self.state.fit.levels]
+        legend = level_legend(self.state.fit.levels, colours)
+        if self.legend.value != legend:
+            self.legend.value = legend
         self.lines.visible = not stacked
 
     def _draw_ci(self, x, bands, colours):

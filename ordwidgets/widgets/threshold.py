@@ -5,7 +5,8 @@ import bqplot as bq
 import ipywidgets as w
 import numpy as np
 
-from ._common import PanelBase, category_colours, esc, figure_toolbar, fmt, is_echo, make_figure, rule_xy
+from ._common import (PanelBase, category_colours, esc, figure_toolbar, fmt, is_echo, level_legend, make_figure,
+                      rule_xy)
 
 __all__ = ["ThresholdPanel", "latent_range"]
 
@@ -79,9 +80,7 @@ class ThresholdPanel(PanelBase):
         extended = getattr(self.state.fit, "layout", None) is not None
         self.note.value = ("<i>non-parallel or scale effects: the rules are the cut points at this scenario; "
                            "the sliders move the base thresholds</i>" if extended else "")
-        self.legend.value = " ".join(
-            f"<span style='background:{c};padding:0 6px;margin-right:4px;opacity:0.8'>{esc(lv)}</span>"
-            for c, lv in zip(colours, self.state.fit.levels))
+        self.legend.value = level_legend(self.state.fit.levels, colours)
 
     def _update_sliders(self):
         res = self.state.fit
