@@ -20,8 +20,23 @@ def po_test_rows(res) -> dict:
     if test is None:
         return {}
     table = test()
-    return {str(name): f"chi2 {fmt(row['statistic'], 4)} on {fmt(row['df'], 3)} df, p = {fmt(row['p_value'], 3)}"
-            for name, row in table.iterrows()}
+    return {str(name): _po_text(row) for name, row in table.iterrows()}
+
+
+def _po_text(row) -> str:
+    """LR figures, then Brant's p and the largest probability change where the table has them.
+
+    With many rows a trivial departure is significant, so the size of the change in predicted
+    probabilities is shown beside the p-values (see ``FitResult.proportional_odds_test``).
+    """
+    text = f"chi2 {fmt(row['statistic'], 4)} on {fmt(row['df'], 3)} df, p = {fmt(row['p_value'], 3)}"
+    brant = row.get("brant_p_value", np.nan)
+    if np.isfinite(brant):
+        text += f"; Brant p = {fmt(brant, 3)}"
+    change = row.get("max_prob_change", np.nan)
+    if np.isfinite(change):
+        text += f"; freeing it moves a probability by up to {100 * change:.1f} points"
+    return text
 
 
 class LinkSelector(PanelBase):
