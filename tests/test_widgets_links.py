@@ -67,7 +67,7 @@ def test_po_figures_beside_each_predictor(panel):
     assert f"chi2 {overall['statistic']:.4g} on {overall['df']:.3g} df" in panel.po_overall.value
     # Brant's p and the largest probability change (the large-n caution) sit beside the LR figures.
     assert f"Brant p = {table.loc['dose', 'brant_p_value']:.3g}" in texts["dose"]
-    assert f"up to {100 * table.loc['dose', 'max_prob_change']:.1f} points" in texts["dose"]
+    assert f"move {100 * table.loc['dose', 'max_prob_change']:.1f} points at most" in texts["dose"]
 
 
 def test_background_link_table_shows_busy_then_rows(data):

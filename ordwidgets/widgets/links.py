@@ -35,7 +35,7 @@ def _po_text(row) -> str:
         text += f"; Brant p = {fmt(brant, 3)}"
     change = row.get("max_prob_change", np.nan)
     if np.isfinite(change):
-        text += f"; freeing it moves a probability by up to {100 * change:.1f} points"
+        text += f"; freed, probabilities move {100 * change:.1f} points at most"
     return text
 
 
