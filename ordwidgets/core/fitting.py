@@ -34,14 +34,32 @@ def thresholds_increasing(params, m):
     return bool(np.all(np.isfinite(params)) and np.all(np.diff(theta) > 0))
 
 
+def _shifted_moments(Xs, weights=None):
+    """Weighted mean and population covariance of columns already shifted near their centre.
+
+    Shifting (by any one row) first keeps ``E[x x'] - E[x] E[x]'`` from cancelling for columns
+    far from zero, such as calendar years or money amounts.
+    """
+    if weights is None:
+        total, first, gram = float(len(Xs)), Xs.sum(axis=0), Xs.T @ Xs
+    else:
+        total, first, gram = float(weights.sum()), weights @ Xs, Xs.T @ (Xs * weights[:, None])
+    centre = first / total
+    return centre, gram / total - np.outer(centre, centre)
+
+
+def _safe_sd(cov):
+    sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
+    return np.where(sd > 0, sd, 1.0)
+
+
 def standardise(X, weights=None):
     """Weighted column means and standard deviations used to scale the design internally."""
-    if X.shape[1] == 0:
-        return np.zeros(0), np.ones(0)
-    w = np.ones(len(X)) if weights is None else weights
-    mean = (w @ X) / w.sum()
-    sd = np.sqrt(np.maximum((w @ (X * X)) / w.sum() - mean**2, 0.0))
-    return mean, np.where(sd > 0, sd, 1.0)
+    if X.shape[1] == 0 or len(X) == 0:
+        return np.zeros(X.shape[1]), np.ones(X.shape[1])
+    shift = X[0]
+    centre, cov = _shifted_moments(X - shift, weights)
+    return shift + centre, _safe_sd(cov)
 
 
 def sorted_standardised(X, order, weights=None):
@@ -66,14 +84,8 @@ def sorted_standardised(X, order, weights=None):
         return Xs, np.zeros(p), np.ones(p), np.zeros((p, p))
     shift = Xs[0].copy()
     Xs -= shift
-    if weights is None:
-        total, first, gram = float(n), Xs.sum(axis=0), Xs.T @ Xs
-    else:
-        total, first, gram = float(weights.sum()), weights @ Xs, Xs.T @ (Xs * weights[:, None])
-    centre = first / total
-    cov = gram / total - np.outer(centre, centre)
-    sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
-    sd = np.where(sd > 0, sd, 1.0)
+    centre, cov = _shifted_moments(Xs, weights)
+    sd = _safe_sd(cov)
     Xs -= centre
     Xs /= sd
     return Xs, shift + centre, sd, cov

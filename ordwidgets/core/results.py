@@ -161,7 +161,9 @@ class FitResult:
 
     def linear_predictor(self, newdata=None) -> np.ndarray:
         """``eta = x'beta`` for each row (parallel location effects only)."""
-        X = self.design(newdata)
+        return self._eta(self.design(newdata))
+
+    def _eta(self, X):
         if self.layout is not None:
             return location_predictor(self.layout, self.params, X)
         return X @ self.params[self.n_thresholds :] if X.shape[1] else np.zeros(len(X))
@@ -183,14 +185,15 @@ class FitResult:
         """
         if level is not None:
             return prediction_intervals(self, newdata, kind=kind, level=level)
-        eta = self.linear_predictor(newdata)
+        X = self.design(newdata)  # built once: formula encoding is the costly part
+        eta = self._eta(X)
         index = self._index(newdata, len(eta))
         if kind == "latent":
             return pd.Series(eta, index=index, name="latent")
         if self.layout is None:
             probs = category_probabilities(self.link, self.params[: self.n_thresholds], eta)
         else:
-            probs = probabilities_at(self, self.design(newdata))
+            probs = probabilities_at(self, X)
         cols = [str(v) for v in self.levels]
         if kind == "probabilities":
             return pd.DataFrame(probs, index=index, columns=cols)
