@@ -4,13 +4,12 @@ Pure functions of a formula and a data frame; nothing here touches widgets.
 """
 from __future__ import annotations
 
-import inspect
 import re
 
 import numpy as np
 import pandas as pd
 
-from .core import OrdinalDataError, fit as core_fit, link_names
+from .core import compare_links
 from .core.design import split_formula
 
 __all__ = ["variables", "without", "is_categorical", "complete_scenario", "match_dtypes",
@@ -129,39 +128,15 @@ def match_dtypes(frame, data) -> pd.DataFrame:
 
 
 def model_kwargs(nonparallel, scale_by, included) -> dict:
-    """Keyword arguments of ``ow.fit`` for non-parallel and scale effects (when supported)."""
+    """Keyword arguments of ``ow.fit`` for non-parallel and scale effects of included predictors."""
     wanted = {"nonparallel": [v for v in nonparallel if v in included],
               "scale_by": [v for v in scale_by if v in included]}
-    params = inspect.signature(core_fit).parameters
-    out = {}
-    for key, names in wanted.items():
-        if names and key not in params:
-            raise OrdinalDataError(f"{key} effects are not available in this version of the fitting core")
-        if names:
-            out[key] = names
-    return out
+    return {key: names for key, names in wanted.items() if names}
 
 
 def link_rows(formula, data, options, extra) -> list:
-    """loglik / AIC / BIC of every link for one spec, best first when the core ranks them.
-
-    Uses ``ow.compare_links`` when the core has it; otherwise fits each link (a failed fit
-    gives an ``error`` row).
-    """
-    from . import core
-
-    if hasattr(core, "compare_links"):
-        table = core.compare_links(formula, data, **options, **extra)
-        return [{"link": str(name), "loglik": row["loglik"], "aic": row["aic"], "bic": row["bic"],
-                 "converged": bool(row["converged"]), "error": "" if row["converged"] else str(row["message"])}
-                for name, row in table.iterrows()]
-    rows = []
-    for name in link_names():
-        try:
-            res = core_fit(formula, data, link=name, **options, **extra)
-            rows.append({"link": name, "loglik": res.loglik, "aic": res.aic, "bic": res.bic,
-                         "converged": bool(res.converged), "error": ""})
-        except Exception as exc:  # noqa: BLE001 - reported in the table, never raised
-            rows.append({"link": name, "loglik": np.nan, "aic": np.nan, "bic": np.nan,
-                         "converged": False, "error": str(exc)})
-    return rows
+    """loglik / AIC / BIC of every link for one spec, best first (``ow.compare_links``)."""
+    table = compare_links(formula, data, **options, **extra)
+    return [{"link": str(name), "loglik": row["loglik"], "aic": row["aic"], "bic": row["bic"],
+             "converged": bool(row["converged"]), "error": "" if row["converged"] else str(row["message"])}
+            for name, row in table.iterrows()]

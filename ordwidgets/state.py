@@ -471,7 +471,7 @@ class FitState(tl.HasTraits):
 
 def n_training(res) -> int:
     """Rows the fit holds for residuals and edited log-likelihoods (a sample for Dask fits)."""
-    return getattr(res, "n_training", res.n_rows)
+    return res.n_training
 
 
 def _result_or_error(work):

@@ -10,10 +10,7 @@ import pytest
 import ordwidgets as ow
 from ordwidgets._spec import grid_values
 
-try:
-    from tests.ow_sim import FORMULA, data, html_values, make_panel, manual_eta, scenario_rows, simulate
-except ImportError:  # tests/ is not a package
-    from ow_sim import FORMULA, data, html_values, make_panel, manual_eta, scenario_rows, simulate
+from tests.ow_sim import FORMULA, data, html_values, make_panel, manual_eta, scenario_rows, simulate
 
 __all__ = ["FORMULA", "data", "make_panel", "simulate", "manual_eta", "scenario_rows", "html_values",
            "check_threshold_panel", "check_explorer", "check_residual_panel"]

@@ -10,10 +10,7 @@ from hypothesis import strategies as hst
 import ordwidgets as ow
 from ordwidgets.state import FitState
 from ordwidgets._statefile import StateFileError
-try:
-    from tests.ow_sim import FORMULA, data, simulate
-except ImportError:  # tests/ is not a package
-    from ow_sim import FORMULA, data, simulate
+from tests.ow_sim import FORMULA, data, simulate
 
 
 @pytest.fixture

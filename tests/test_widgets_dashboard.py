@@ -4,10 +4,7 @@ import pytest
 
 import ordwidgets as ow
 
-try:
-    from tests.ow_checks import *  # noqa: F403 - fixtures, data and reference checks
-except ImportError:  # tests/ is not a package
-    from ow_checks import *  # noqa: F403
+from tests.ow_checks import *  # noqa: F403 - fixtures, data and reference checks
 
 HOSTILE_RAW = ("<script>", "<b>bold</b>", "<i>low</i>")
 

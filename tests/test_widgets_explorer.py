@@ -4,10 +4,7 @@ import pytest
 
 import ordwidgets as ow
 
-try:
-    from tests.ow_checks import *  # noqa: F403 - fixtures, data and reference checks
-except ImportError:  # tests/ is not a package
-    from ow_checks import *  # noqa: F403
+from tests.ow_checks import *  # noqa: F403 - fixtures, data and reference checks
 
 
 panel = pytest.fixture(name="panel")(lambda make_panel: make_panel(ow.ProbabilityExplorer))
@@ -78,12 +75,7 @@ def test_whatif_escapes_labels(panel):
 
 
 def test_interval_bands_equal_the_core_intervals(panel):
-    import inspect
-
     panel.view.value = "lines"
-    if "level" not in inspect.signature(panel.state.fit.predict).parameters:
-        assert not panel.ci.visible and "not available" in panel.note.value
-        return
     frame = panel.grid_frame()[3]
     ref = panel.state.fit.predict(frame, kind="probabilities", level=0.95)  # reference: the core
     bands = np.asarray(panel.ci.y)

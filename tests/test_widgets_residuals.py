@@ -5,10 +5,7 @@ from bqplot.traits import array_to_json
 
 import ordwidgets as ow
 
-try:
-    from tests.ow_checks import *  # noqa: F403 - fixtures, data and reference checks
-except ImportError:  # tests/ is not a package
-    from ow_checks import *  # noqa: F403
+from tests.ow_checks import *  # noqa: F403 - fixtures, data and reference checks
 
 
 panel = pytest.fixture(name="panel")(lambda make_panel: make_panel(ow.ResidualPanel))

@@ -1,8 +1,6 @@
 """``ProbabilityExplorer``: category probabilities across one predictor, and a what-if table."""
 from __future__ import annotations
 
-import inspect
-
 import bqplot as bq
 import ipywidgets as w
 import numpy as np
@@ -21,17 +19,12 @@ def expected_score(probs):
 
 
 def interval_bands(res, frame, level=0.95):
-    """Lower and upper interval bounds of the category probabilities, or ``None``.
+    """Lower and upper interval bounds of the category probabilities.
 
-    Uses ``res.predict(frame, kind="probabilities", level=level)`` when the fitting core
-    offers intervals; the bounds are only drawn at the fitted thresholds.
+    From ``res.predict(frame, kind="probabilities", level=level)`` (delta method on the logit
+    scale); the bounds are only drawn at the fitted thresholds.
     """
-    if "level" not in inspect.signature(res.predict).parameters:
-        return None
     out = res.predict(frame, kind="probabilities", level=level)
-    parts = out.columns.get_level_values(0) if out.columns.nlevels == 2 else ()
-    if "lower" not in parts or "upper" not in parts:
-        return None
     return out["lower"].to_numpy(float), out["upper"].to_numpy(float)
 
 
@@ -173,7 +166,7 @@ class ProbabilityExplorer(PanelBase):
         except Exception as exc:  # noqa: BLE001 - shown as a note, never breaks the panel
             self.note.value = f"<i>intervals failed: {esc(exc)}</i>"
             return None
-        self.note.value = "" if bands is not None else "<i>interval bands not available in this version</i>"
+        self.note.value = ""
         return bands
 
     def _draw_marker(self, positions, values, categorical):

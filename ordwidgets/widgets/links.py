@@ -1,25 +1,18 @@
 """``LinkSelector``: the link, a comparison of all links, and the model controls."""
 from __future__ import annotations
 
-import inspect
-
 import ipywidgets as w
 import numpy as np
 
-from ..core import SIGN_CONVENTION, fit as core_fit, link_names
+from ..core import SIGN_CONVENTION, link_names
 from ._common import PanelBase, esc, fmt, html_table
 
 __all__ = ["LinkSelector", "po_test_rows"]
 
-_UNAVAILABLE = "<i>proportional-odds test not available in this version</i>"
-
 
 def po_test_rows(res) -> dict:
-    """``{name: "statistic / df / p"}`` text from ``res.proportional_odds_test()``, or ``{}``."""
-    test = getattr(res, "proportional_odds_test", None)
-    if test is None:
-        return {}
-    table = test()
+    """``{name: "statistic / df / p ..."}`` text from ``res.proportional_odds_test()``."""
+    table = res.proportional_odds_test()
     return {str(name): _po_text(row) for name, row in table.iterrows()}
 
 
@@ -66,8 +59,6 @@ class LinkSelector(PanelBase):
         self.message, self.po_overall, self.effects = self.own(w.HTML(), w.HTML(), w.HTML())
         self.effects.add_class("ow-effects-table")
         self._rows, self._po = {}, {}
-        supported = inspect.signature(core_fit).parameters
-        self._can = {k: k in supported for k in ("nonparallel", "scale_by")}
         self.children = [w.HTML("<b>Link and model</b>"), self.dropdown, self.table,
                          w.HTML("<b>Predictors</b> (in model &middot; non-parallel &middot; scale effect "
                                 "&middot; proportional-odds test)"), self.controls, self.po_overall,
@@ -87,9 +78,8 @@ class LinkSelector(PanelBase):
     def _request_tables(self):
         self.state.request_link_table()
         self._po = {}
-        if hasattr(self.state.fit, "proportional_odds_test"):
-            self.state.run_long("testing proportional odds", lambda res=self.state.fit: po_test_rows(res),
-                                self._set_po)
+        self.state.run_long("testing proportional odds", lambda res=self.state.fit: po_test_rows(res),
+                            self._set_po)
         self._update_table()
 
     def _set_po(self, rows):
@@ -130,8 +120,6 @@ class LinkSelector(PanelBase):
                 inc.value = name not in self.state.dropped
                 nonpar.value, scale.value = name in self.state.nonparallel, name in self.state.scale_by
                 nonpar.disabled = scale.disabled = not inc.value
-                nonpar.disabled |= not self._can["nonparallel"]
-                scale.disabled |= not self._can["scale_by"]
         self._update_po()
 
     def _make_rows(self, names):
@@ -166,14 +154,11 @@ class LinkSelector(PanelBase):
             self.state.nonparallel, self.state.scale_by = pick["nonparallel"], pick["scale_by"]
 
     def _update_po(self):
-        available = hasattr(self.state.fit, "proportional_odds_test")
         overall = self._po.get("(overall)")
         self.po_overall.value = f"all predictors together: {esc(overall)}" if overall else ""
         for name, (*_, text) in self._rows.items():
             if name in self.state.dropped:
                 text.value = "<i>out of the model</i>"
-            elif not available:
-                text.value = _UNAVAILABLE
             else:
                 text.value = esc(self._match_po(name)) if self._po else "<i>testing...</i>"
 

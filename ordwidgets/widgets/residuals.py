@@ -19,11 +19,9 @@ _TABLE_ROWS = 12
 
 
 def residual_tools():
-    """The residual and diagnostics modules of the core, or ``None`` if they have not landed."""
-    try:
-        from ..core import diagnostics, residuals
-    except ImportError:
-        return None
+    """The residual and diagnostics modules of the core."""
+    from ..core import diagnostics, residuals
+
     return residuals, diagnostics
 
 
@@ -97,10 +95,6 @@ class ResidualPanel(PanelBase):
                                              w.VBox([self.qq_figure, figure_toolbar(self.qq_figure, "qq")],
                                                     layout=w.Layout(width="40%"))]),
                          self.summary, self.table]
-        if self.tools is None:
-            self.children = [w.HTML("<b>Surrogate residuals</b>: <i>not available in this version "
-                                    "(the residual functions of the core have not landed)</i>")]
-            self._dispatch = {}
         self.redraw_all()
 
     def _build_scatter(self):
