@@ -290,6 +290,15 @@ class FitResult:
 
         return proportional_odds_test(self)
 
+    def term_tests(self, *, likelihood_ratio=True) -> pd.DataFrame:
+        """Likelihood-ratio and Wald tests of each formula term (a factor's dummies jointly).
+
+        See :func:`ordwidgets.core.termtests.term_tests`.
+        """
+        from .termtests import term_tests
+
+        return term_tests(self, likelihood_ratio=likelihood_ratio)
+
     def average_marginal_effects(self) -> pd.DataFrame:
         """Average marginal effects on each category probability, with delta-method SEs."""
         from .effects import average_marginal_effects
