@@ -20,7 +20,8 @@ from .exceptions import CrossingWarning
 from .extended import cumulative_predictors, end_jacobian, layout_of
 from .probabilities import interval_probability
 
-__all__ = ["probabilities_at", "probability_jacobian", "prediction_intervals", "average_marginal_effects"]
+__all__ = ["probabilities_at", "probability_jacobian", "prediction_intervals", "average_marginal_effects",
+           "logit_interval"]
 
 
 def _check_level(level):
@@ -65,7 +66,7 @@ def probability_jacobian(res, D, params=None):
     return probabilities_at(res, D, params), np.diff(dC, axis=1)
 
 
-def _logit_interval(est, G, cov, level):
+def logit_interval(est, G, cov, level):
     """Interval for probabilities ``est`` with gradients ``G``, built on the logit scale."""
     var = np.einsum("njp,pq,njq->nj", G, cov, G)
     q = stats.norm.isf((1 - level) / 2)
@@ -107,7 +108,7 @@ def prediction_intervals(res, newdata=None, *, kind="probabilities", level=0.95)
     if kind == "cumulative":
         est, G = np.cumsum(est, axis=1).clip(0, 1), np.cumsum(G, axis=1)
         est[:, -1] = 1.0
-    lower, upper = _logit_interval(est, G, res.cov, level)
+    lower, upper = logit_interval(est, G, res.cov, level)
     cols = pd.MultiIndex.from_product([["estimate", "lower", "upper"], [str(v) for v in res.levels]],
                                       names=["part", "level"])
     index = res._index(newdata, len(est))

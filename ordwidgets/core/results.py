@@ -299,6 +299,30 @@ class FitResult:
 
         return term_tests(self, likelihood_ratio=likelihood_ratio)
 
+    def contrasts(self, term, *, level=0.95):
+        """Pairwise level differences of a factor (Holm-adjusted) and its averaged probabilities.
+
+        See :func:`ordwidgets.core.contrasts.contrasts`.
+        """
+        from .contrasts import contrasts
+
+        return contrasts(self, term, level=level)
+
+    def probability_difference(self, scenario, baseline, *, level=0.95) -> pd.DataFrame:
+        """Scenario minus baseline probabilities with delta-method intervals.
+
+        See :func:`ordwidgets.core.contrasts.probability_difference`.
+        """
+        from .contrasts import probability_difference
+
+        return probability_difference(self, scenario, baseline, level=level)
+
+    def odds_scale(self, *, level=0.95) -> pd.DataFrame:
+        """``exp(beta)`` with intervals (logit link only; see :mod:`ordwidgets.core.oddsscale`)."""
+        from .oddsscale import odds_scale
+
+        return odds_scale(self, level=level)
+
     def average_marginal_effects(self) -> pd.DataFrame:
         """Average marginal effects on each category probability, with delta-method SEs."""
         from .effects import average_marginal_effects
