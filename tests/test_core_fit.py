@@ -173,7 +173,7 @@ def test_prediction_kinds_are_consistent():
     eta = res.predict(kind="latent").to_numpy()
     ref = stats.logistic.cdf(res.thresholds.to_numpy()[None, :] - eta[:, None])
     np.testing.assert_allclose(cum.to_numpy()[:, :3], ref, atol=1e-12)
-    assert (res.predict(kind="class") == probs.idxmax(axis=1).astype(int)).all()
+    assert (res.predict(kind="most_likely") == probs.idxmax(axis=1).astype(int)).all()
     with pytest.raises(ValueError, match="kind"):
         res.predict(kind="odds")
 

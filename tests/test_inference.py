@@ -28,6 +28,18 @@ def test_wald_interval_is_estimate_plus_minus_z_se():
     assert list(ci.index) == list(res.std_errors.index)
 
 
+def test_table_wald_columns_are_estimate_plus_minus_z_se():
+    # Same definition through FitResult.table(); z from scipy.stats.norm.
+    df, _, _ = small_data()
+    res = ow.fit("y ~ x + v", df)
+    tab = res.table(level=0.9)
+    assert list(tab.columns) == ["estimate", "std_error", "z", "p_value", "wald_low", "wald_high"]
+    z = stats.norm.ppf(0.95)
+    np.testing.assert_allclose(tab["wald_low"], res.params - z * res.std_errors, rtol=1e-12)
+    np.testing.assert_allclose(tab["wald_high"], res.params + z * res.std_errors, rtol=1e-12)
+    assert "95% Wald interval" in res._repr_html_()
+
+
 def _independent_profile_end(negll, est, k, m, sign, se, level):
     """Profile end by scipy: BFGS over the other parameters, brentq on the deviance.
 

@@ -54,7 +54,7 @@ def test_focus_dropdown_sets_state(panel):
 
 
 def test_lines_view_hides_the_stack(panel):
-    panel.view.value = "lines"
+    panel.view.value = "curves"
     assert panel.lines.visible and not panel.bands.visible
     check_explorer(panel)
 
@@ -75,7 +75,7 @@ def test_whatif_escapes_labels(panel):
 
 
 def test_interval_bands_equal_the_core_intervals(panel):
-    panel.view.value = "lines"
+    panel.view.value = "curves"
     frame = panel.grid_frame()[3]
     ref = panel.state.fit.predict(frame, kind="probabilities", level=0.95)  # reference: the core
     bands = np.asarray(panel.ci.y)
@@ -84,7 +84,7 @@ def test_interval_bands_equal_the_core_intervals(panel):
     assert panel.ci.visible
     panel.state.set_threshold(0, panel.state.theta[0] + 0.2)
     assert not panel.ci.visible and "fitted thresholds only" in panel.note.value
-    panel.view.value = "stacked"
+    panel.view.value = "shares"
     assert panel.note.value == "" and not panel.ci.visible
 
 
@@ -119,5 +119,5 @@ def test_legend_names_every_level_in_its_band_colour(panel):
     assert len(chips) == len(st.fit.levels)
     for chip, colour in zip(chips, panel.bands.fill_colors):
         assert f"background:{colour}" in chip
-    panel.view.value = "lines"
+    panel.view.value = "curves"
     assert panel.legend.value.count("</span>") == len(st.fit.levels)

@@ -53,9 +53,9 @@ def test_po_figures_beside_each_predictor(panel):
     texts = {name: row[3].value for name, row in panel._rows.items()}
     table = panel.state.fit.proportional_odds_test()  # reference: the core's test table
     assert f"{table.loc['dose', 'statistic']:.4g}" in texts["dose"]
-    assert "C(group)[T.&lt;script&gt;alert(1)&lt;/script&gt;]: chi2" in texts["group"]
+    assert "C(group)[T.&lt;script&gt;alert(1)&lt;/script&gt;]: χ² =" in texts["group"]
     overall = table.loc["(overall)"]
-    assert f"chi2 {overall['statistic']:.4g} on {overall['df']:.3g} df" in panel.po_overall.value
+    assert f"χ² = {overall['statistic']:.4g} ({overall['df']:.3g} df)" in panel.po_overall.value
     # Brant's p and the largest probability change (the large-n caution) sit beside the LR figures.
     assert f"Brant p = {table.loc['dose', 'brant_p_value']:.3g}" in texts["dose"]
     assert f"move {100 * table.loc['dose', 'max_prob_change']:.1f} points at most" in texts["dose"]

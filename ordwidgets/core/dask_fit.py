@@ -148,7 +148,7 @@ def fit_dask(formula, data, *, link="logit", weights=None, levels=None, max_iter
     seed : int
         Seed of the sample.
     progress : {"auto", True, False} or callable
-        Status line with the stage and each Newton step (log-likelihood, max |gradient|):
+        Status line with the stage and each Newton step (log-likelihood, largest score):
         ``"auto"`` in notebooks only; see :func:`ordwidgets.core.progress.progress_for`.
     cache : bool
         Keep every partition's prepared design (standardised float columns sorted by

@@ -78,7 +78,7 @@ def logit_interval(est, G, cov, level):
     return np.where(edge, est, lower), np.where(edge, est, upper)
 
 
-def prediction_intervals(res, newdata=None, *, kind="probabilities", level=0.95):
+def prediction_intervals(res, data=None, *, kind="probabilities", level=0.95):
     """Predicted probabilities with pointwise delta-method intervals.
 
     The interval is ``expit(logit(p) -+ z * SE(logit p))`` with
@@ -96,14 +96,14 @@ def prediction_intervals(res, newdata=None, *, kind="probabilities", level=0.95)
     Returns
     -------
     pandas.DataFrame
-        One row per row of ``newdata``; columns a two-level MultiIndex
+        One row per row of ``data``; columns a two-level MultiIndex
         ``(part, level)`` with ``part`` in ``"estimate"``, ``"lower"``, ``"upper"``, e.g.
         ``frame["lower"]`` is a frame with one column per response level.
     """
     _check_level(level)
     if kind not in ("probabilities", "cumulative"):
         raise ValueError(f"intervals are available for kind='probabilities' or 'cumulative', got {kind!r}")
-    D = res.design(newdata)
+    D = res.design(data)
     est, G = probability_jacobian(res, D)
     if kind == "cumulative":
         est, G = np.cumsum(est, axis=1).clip(0, 1), np.cumsum(G, axis=1)
@@ -111,7 +111,7 @@ def prediction_intervals(res, newdata=None, *, kind="probabilities", level=0.95)
     lower, upper = logit_interval(est, G, res.cov, level)
     cols = pd.MultiIndex.from_product([["estimate", "lower", "upper"], [str(v) for v in res.levels]],
                                       names=["part", "level"])
-    index = res._index(newdata, len(est))
+    index = res._index(data, len(est))
     return pd.DataFrame(np.hstack([est, lower, upper]), index=index, columns=cols)
 
 

@@ -40,8 +40,8 @@ class LayoutFit:
     loglik: float
     converged: bool
     message: str
-    condition: float
-    max_grad: float
+    curvature_condition: float
+    largest_score: float
     iterations: int
     n_obs: float
 
@@ -272,7 +272,7 @@ def fit_extended(formula, data, *, link="logit", weights=None, levels=None, max_
         link=lk, levels=prep.levels, threshold_names=layout.thresholds,
         coef_names=tuple(layout.param_names()[layout.m:]), params=out.params, cov=out.cov,
         loglik=out.loglik, n_obs=out.n_obs, n_rows=int(len(prep.y)), iterations=out.iterations,
-        converged=out.converged, message=out.message, max_grad=out.max_grad, condition=out.condition,
+        converged=out.converged, message=out.message, largest_score=out.largest_score, curvature_condition=out.curvature_condition,
         formula=formula, response=prep.response, model_spec=prep.model_spec, notes=tuple(prep.notes),
         training=TrainingData(prep.X, prep.y, prep.weights, prep.index, frame=prep.frame) if keep_data else None,
         options={"weights": weights, "levels": levels, "nonparallel": nonparallel, "scale_by": scale_by,

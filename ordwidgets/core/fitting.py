@@ -191,8 +191,8 @@ def _result(prep, lk, fitted, mean, sd, *, formula, n_obs, n_rows, training, opt
         link=lk, levels=prep.levels, threshold_names=tuple(threshold_labels(prep.levels)),
         coef_names=prep.columns, params=params, cov=cov, loglik=float(outcome.loglik),
         n_obs=n_obs, n_rows=n_rows, iterations=outcome.iterations,
-        converged=converged, message=message, max_grad=float(np.max(np.abs(grad_user), initial=0.0)),
-        condition=condition, formula=formula, response=prep.response, model_spec=prep.model_spec,
+        converged=converged, message=message, largest_score=float(np.max(np.abs(grad_user), initial=0.0)),
+        curvature_condition=condition, formula=formula, response=prep.response, model_spec=prep.model_spec,
         notes=tuple(prep.notes), training=training, options=options,
     )
 

@@ -44,7 +44,7 @@ class FitProgress:
     def __call__(self, iteration, params, loglik, grad):
         """Newton callback: iteration, log-likelihood and largest absolute gradient."""
         big = float(np.max(np.abs(grad), initial=0.0))
-        self.show(f"Newton step {iteration}: log-likelihood {loglik:.8g}, max |gradient| {big:.3g}")
+        self.show(f"Newton step {iteration}: log-likelihood {loglik:.8g}, largest score {big:.3g}")
         if self.callback is not None:
             self.callback(iteration, params, loglik, grad)
 

@@ -74,8 +74,8 @@ class FitResult:
     iterations: int
     converged: bool
     message: str
-    max_grad: float
-    condition: float
+    largest_score: float
+    curvature_condition: float
     formula: str
     response: str
     model_spec: object = None
@@ -136,44 +136,47 @@ class FitResult:
         return -2.0 * self.loglik + np.log(self.n_obs) * self.n_params
 
     def table(self, level=0.95) -> pd.DataFrame:
-        """Estimates with standard errors, Wald z, two-sided p and Wald interval."""
+        """Estimates with standard errors, Wald z, two-sided p and Wald interval.
+
+        Columns ``estimate``, ``std_error``, ``z``, ``p_value``, ``wald_low``, ``wald_high``
+        (the Wald interval ``estimate -+ z_{(1+level)/2} * std_error`` of coverage ``level``).
+        """
         _check_level(level)
         est = pd.Series(self.params, index=self.names)
         se = self.std_errors
         z = est / se
         q = stats.norm.isf((1 - level) / 2)
-        lo, hi = f"lower {level:.0%}", f"upper {level:.0%}"
         return pd.DataFrame(
             {"estimate": est, "std_error": se, "z": z, "p_value": 2 * stats.norm.sf(np.abs(z)),
-             lo: est - q * se, hi: est + q * se}
+             "wald_low": est - q * se, "wald_high": est + q * se}
         )
 
     # ---- prediction ------------------------------------------------------------------------
-    def design(self, newdata=None) -> np.ndarray:
-        """Design matrix (no intercept) for ``newdata`` (default: the training rows)."""
-        if newdata is None:
+    def design(self, data=None) -> np.ndarray:
+        """Design matrix (no intercept) for ``data`` (default: the training rows)."""
+        if data is None:
             return self._training().X
         cols = self.coef_names if self.layout is None else self.layout.columns
         if self.model_spec is None or not cols:
-            return np.empty((len(newdata), 0))
-        mm = self.model_spec.get_model_matrix(newdata, na_action="ignore")
+            return np.empty((len(data), 0))
+        mm = self.model_spec.get_model_matrix(data, na_action="ignore")
         return mm[list(cols)].to_numpy(float)
 
-    def linear_predictor(self, newdata=None) -> np.ndarray:
+    def linear_predictor(self, data=None) -> np.ndarray:
         """``eta = x'beta`` for each row (parallel location effects only)."""
-        return self._eta(self.design(newdata))
+        return self._eta(self.design(data))
 
     def _eta(self, X):
         if self.layout is not None:
             return location_predictor(self.layout, self.params, X)
         return X @ self.params[self.n_thresholds :] if X.shape[1] else np.zeros(len(X))
 
-    def predict(self, newdata=None, kind="probabilities", *, level=None) -> pd.DataFrame | pd.Series:
-        """Predictions for ``newdata`` (default: the training rows).
+    def predict(self, data=None, kind="probabilities", *, level=None) -> pd.DataFrame | pd.Series:
+        """Predictions for ``data`` (default: the training rows).
 
         Parameters
         ----------
-        kind : {"probabilities", "cumulative", "latent", "class"}
+        kind : {"probabilities", "cumulative", "latent", "most_likely"}
             Category probabilities (one column per level), cumulative probabilities
             ``P(Y <= j)`` (one column per level), the linear predictor ``x'beta`` or the most
             likely level.
@@ -184,10 +187,10 @@ class FitResult:
             "upper" (see :func:`ordwidgets.core.effects.prediction_intervals`).
         """
         if level is not None:
-            return prediction_intervals(self, newdata, kind=kind, level=level)
-        X = self.design(newdata)  # built once: formula encoding is the costly part
+            return prediction_intervals(self, data, kind=kind, level=level)
+        X = self.design(data)  # built once: formula encoding is the costly part
         eta = self._eta(X)
-        index = self._index(newdata, len(eta))
+        index = self._index(data, len(eta))
         if kind == "latent":
             return pd.Series(eta, index=index, name="latent")
         if self.layout is None:
@@ -199,9 +202,10 @@ class FitResult:
             return pd.DataFrame(probs, index=index, columns=cols)
         if kind == "cumulative":
             return pd.DataFrame(np.cumsum(probs, axis=1).clip(0, 1), index=index, columns=cols)
-        if kind == "class":
-            return pd.Series(np.asarray(self.levels, dtype=object)[probs.argmax(axis=1)], index=index, name="class")
-        raise ValueError(f"kind must be 'probabilities', 'cumulative', 'latent' or 'class', got {kind!r}")
+        if kind == "most_likely":
+            return pd.Series(np.asarray(self.levels, dtype=object)[probs.argmax(axis=1)], index=index,
+                             name="most_likely")
+        raise ValueError(f"kind must be 'probabilities', 'cumulative', 'latent' or 'most_likely', got {kind!r}")
 
     def error_bounds(self, thresholds=None, coefficients=None):
         """Interval of the (standardised) latent error implied by each training row's category.
@@ -334,10 +338,10 @@ class FitResult:
             raise ValueError("this result does not hold its training data (fit with keep_data=True)")
         return self.training
 
-    def _index(self, newdata, n):
-        if newdata is not None and hasattr(newdata, "index"):
-            return newdata.index
-        if newdata is None and self.training is not None:
+    def _index(self, data, n):
+        if data is not None and hasattr(data, "index"):
+            return data.index
+        if data is None and self.training is not None:
             return self.training.index
         return pd.RangeIndex(n)
 
@@ -357,8 +361,8 @@ class FitResult:
             "BIC": self.bic,
             "converged": self.converged,
             "Newton steps": self.iterations,
-            "max |gradient|": self.max_grad,
-            "Hessian condition": self.condition,
+            "largest score": self.largest_score,
+            "curvature condition": self.curvature_condition,
         }
 
     def __str__(self) -> str:
@@ -423,6 +427,13 @@ def render_html(res) -> str:
         f"<div style='font-weight:bold'>Cumulative link fit &middot; {e(res.formula)}</div>"
         f"<div style='color:{colour}'>{e(status)}</div>"
         f"<div style='font-size:90%;margin:4px 0'>{facts}</div>{notes}"
-        f"<table style='border-collapse:collapse'><tr><th></th>{head}</tr>{body}</table>"
+        f"<table style='border-collapse:collapse'>{_interval_head(tab)}<tr><th></th>{head}</tr>{body}</table>"
         f"<div style='font-size:85%;color:#555;margin-top:4px'>{e(SIGN_CONVENTION)}</div></div>"
     )
+
+
+def _interval_head(tab, level=0.95) -> str:
+    """Header row naming the interval method over the ``wald_low`` / ``wald_high`` columns."""
+    before = list(tab.columns).index("wald_low") + 1
+    return (f"<tr><th colspan='{before}'></th><th colspan='2' style='text-align:center;padding:2px 8px;"
+            f"font-weight:normal;font-style:italic'>{level:.0%} Wald interval</th></tr>")

@@ -36,7 +36,7 @@ class ProbabilityExplorer(PanelBase):
     """Probabilities of every category across the focus predictor's observed range.
 
     Other predictors are held at the scenario values, editable with sliders (numbers) or
-    dropdowns (levels).  A stacked band chart or a lines view (with interval bands when the
+    dropdowns (levels).  A "shares" view (stacked bands) or a "curves" view (with interval bands when the
     core provides them at the fitted thresholds); a marker at the scenario value; a what-if
     table of baseline against scenario (``ow-whatif-table``).
     """
@@ -54,7 +54,7 @@ class ProbabilityExplorer(PanelBase):
         self.focus_dropdown = self.own(w.Dropdown(description="x-axis"))
         self.focus_dropdown.add_class("ow-focus-dropdown")
         self.focus_dropdown.observe(self._focus_chosen, names="value")
-        self.view = self.own(w.ToggleButtons(options=["stacked", "lines"], value="stacked"))
+        self.view = self.own(w.ToggleButtons(options=["shares", "curves"], value="shares"))
         self.view.observe(lambda _: self._update_curves(), names="value")
         self.target = self.own(w.ToggleButtons(options=["scenario", "baseline"], value="scenario",
                                                tooltips=["edit the what-if case", "edit the comparison case"]))
@@ -123,13 +123,13 @@ class ProbabilityExplorer(PanelBase):
         positions, values, categorical, frame = self.grid_frame()
         probs = st.probabilities(frame)
         colours = category_colours(probs.shape[1])
-        stacked = self.view.value == "stacked"
-        bands = None if stacked else self._interval_bands(frame)
-        if stacked:
+        shares = self.view.value == "shares"
+        bands = None if shares else self._interval_bands(frame)
+        if shares:
             self.note.value = ""
         with self.bands.hold_sync(), self.lines.hold_sync(), self.ci.hold_sync(), self.marker.hold_sync():
-            self._draw_bands(positions, probs, colours, stacked)
-            self._draw_lines(positions, probs, colours, stacked)
+            self._draw_bands(positions, probs, colours, shares)
+            self._draw_lines(positions, probs, colours, shares)
             self._draw_ci(positions, bands, colours)
             self._draw_marker(positions, values, categorical)
             self._draw_axis(positions, values, categorical)
@@ -140,13 +140,13 @@ class ProbabilityExplorer(PanelBase):
         self.bands.fill_colors, self.bands.colors = colours + [None], colours + ["#444444"]
         self.bands.visible = visible
 
-    def _draw_lines(self, x, probs, colours, stacked):
+    def _draw_lines(self, x, probs, colours, shares):
         self.lines.x, self.lines.y, self.lines.colors = x, probs.T, colours
         self.lines.labels = [str(v) for v in self.state.fit.levels]
         legend = level_legend(self.state.fit.levels, colours)
         if self.legend.value != legend:
             self.legend.value = legend
-        self.lines.visible = not stacked
+        self.lines.visible = not shares
 
     def _draw_ci(self, x, bands, colours):
         self.ci.visible = bands is not None

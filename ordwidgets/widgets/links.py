@@ -22,7 +22,7 @@ def _po_text(row) -> str:
     With many rows a trivial departure is significant, so the size of the change in predicted
     probabilities is shown beside the p-values (see ``FitResult.proportional_odds_test``).
     """
-    text = f"chi2 {fmt(row['statistic'], 4)} on {fmt(row['df'], 3)} df, p = {fmt(row['p_value'], 3)}"
+    text = f"χ² = {fmt(row['statistic'], 4)} ({fmt(row['df'], 3)} df), p = {fmt(row['p_value'], 3)}"
     brant = row.get("brant_p_value", np.nan)
     if np.isfinite(brant):
         text += f"; Brant p = {fmt(brant, 3)}"
@@ -107,7 +107,7 @@ class LinkSelector(PanelBase):
         rows = [[name, fmt(r["estimate"], 4), fmt(r["std_error"], 3), fmt(r["p_value"], 3)]
                 for name, r in table.loc[list(self.state.fit.coef_names)].iterrows()]
         self.effects.value = ("<b>Effects</b> (positive = towards higher categories)"
-                              + html_table(["effect", "estimate", "std. error", "p-value"], rows)
+                              + html_table(["effect", "estimate", "SE", "p-value"], rows)
                               + f"<div style='font-size:85%;color:#555'>{esc(SIGN_CONVENTION)}</div>")
 
     # ---- model controls ------------------------------------------------------------------------------

@@ -59,5 +59,5 @@ def test_what_if_exports_the_comparison_table(executed, notebook_copies):
     np.testing.assert_allclose(table[["baseline", "scenario"]].sum(), 1.0, atol=1e-9)
     np.testing.assert_allclose(table["difference"].sum(), 0.0, atol=1e-9)
     for case in ["baseline", "scenario"]:
-        assert (table[f"{case} lower 95%"] <= table[case]).all()
-        assert (table[case] <= table[f"{case} upper 95%"]).all()
+        assert (table[f"{case}_low"] <= table[case]).all()
+        assert (table[case] <= table[f"{case}_high"]).all()
