@@ -13,7 +13,7 @@ from .core import compare_links
 from .core.design import split_formula
 
 __all__ = ["variables", "without", "is_categorical", "complete_scenario", "match_dtypes",
-           "model_kwargs", "link_rows", "default_value", "grid_values"]
+           "model_kwargs", "link_rows", "default_value", "weighted_median", "value_range", "grid_values"]
 
 
 def _formula(rhs):
@@ -58,12 +58,37 @@ def is_categorical(column, name, formula) -> bool:
     return pd.api.types.is_bool_dtype(dtype) or not pd.api.types.is_numeric_dtype(dtype)
 
 
-def default_value(column, categorical):
-    """Median of a number, most common value of a level (ties: first in sorted order)."""
-    col = column.dropna()
+def default_value(column, categorical, weights=None):
+    """Median of a number, most common value of a level (ties: first in sorted order).
+
+    With frequency ``weights`` (one per row of ``column``) these are the weighted median and
+    mode: the values of the data expanded to one row per counted unit.
+    """
+    w = np.ones(len(column)) if weights is None else np.asarray(weights, float)
+    keep = column.notna().to_numpy() & (w > 0)
+    col, w = column[keep], w[keep]
     if categorical:
-        return _native(col.value_counts(sort=True).index[0])
-    return float(np.median(col.to_numpy(float)))
+        totals = pd.Series(w).groupby(col.to_numpy(), sort=True, observed=True).sum()
+        return _native(totals.index[int(np.argmax(totals.to_numpy()))])
+    return weighted_median(col.to_numpy(float), w)
+
+
+def weighted_median(values, weights) -> float:
+    """Median of ``values`` repeated ``weights`` times (the mean of the two middle values
+    when the weight below one of them is exactly half, as for an even count)."""
+    order = np.argsort(values, kind="stable")
+    x, cum = values[order], np.cumsum(np.asarray(weights, float)[order])
+    half = cum[-1] / 2.0
+    i = int(np.searchsorted(cum, half, side="left"))
+    if np.isclose(cum[i], half, rtol=1e-12, atol=0.0) and i + 1 < len(x):
+        return float((x[i] + x[i + 1]) / 2.0)
+    return float(x[i])
+
+
+def value_range(column):
+    """``(min, max)`` of a numeric column's observed values."""
+    values = column.dropna().to_numpy(float)
+    return float(values.min()), float(values.max())
 
 
 def grid_values(column, categorical, n=101):
@@ -81,11 +106,13 @@ def _native(value):
     return value.item() if isinstance(value, np.generic) else value
 
 
-def complete_scenario(values, data, formula, *, lenient=False) -> dict:
+def complete_scenario(values, data, formula, *, lenient=False, weights=None, current=None) -> dict:
     """Validated scenario: every predictor present, numbers finite, levels observed.
 
-    Missing predictors get :func:`default_value`.  Unknown names or bad values raise
-    ``TraitError`` unless ``lenient`` (then they are dropped or replaced by the default).
+    A predictor missing from ``values`` keeps its value in ``current`` (a partial edit
+    changes only the predictors it names), else gets :func:`default_value` of ``data``
+    (weighted by ``weights``).  Unknown names or bad values raise ``TraitError`` unless
+    ``lenient`` (then they are dropped or replaced by the default).
     """
     from traitlets import TraitError
 
@@ -93,16 +120,18 @@ def complete_scenario(values, data, formula, *, lenient=False) -> dict:
     unknown = [k for k in values if k not in names]
     if unknown and not lenient:
         raise TraitError(f"scenario names unknown predictors: {unknown}")
+    merged = {**{k: v for k, v in (current or {}).items() if k in names}, **values}
     out = {}
     for name in names:
         categorical = is_categorical(data[name], name, formula)
-        fallback = default_value(data[name], categorical)
         try:
-            out[name] = _check_value(values[name], data[name], categorical) if name in values else fallback
+            out[name] = _check_value(merged[name], data[name], categorical) if name in merged else None
         except (TraitError, TypeError, ValueError):
             if not lenient:
                 raise
-            out[name] = fallback
+            out[name] = None
+        if out[name] is None:
+            out[name] = default_value(data[name], categorical, weights)
     return out
 
 

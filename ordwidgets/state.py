@@ -27,11 +27,13 @@ import numpy as np
 import pandas as pd
 import traitlets as tl
 
-from .core import FitResult, OrdinalDataError, fit as core_fit, interval_probability, link_names
+from .core import FitResult, OrdinalDataError, fit as core_fit, link_names
+from .core.effects import probabilities_at
 from . import _spec
+from ._jobs import JobRunner
 from ._loglik import RowLoglik
 
-__all__ = ["FitState", "CHANGE_KINDS"]
+__all__ = ["FitState", "CHANGE_KINDS", "ThresholdEditError", "unusable"]
 
 CHANGE_KINDS = ("fit", "thresholds", "scenario", "focus", "residuals", "selection", "link_table", "error")
 _KIND_OF = {
@@ -41,7 +43,6 @@ _KIND_OF = {
     "residual_seed": "residuals", "selection": "selection", "link_table": "link_table",
 }
 _SPEC = ("data", "formula", "link", "options", "dropped", "nonparallel", "scale_by")
-_MIN_GAP = 1e-6
 
 
 class FitState(tl.HasTraits):
@@ -76,7 +77,7 @@ class FitState(tl.HasTraits):
     updates = tl.Int(0, help="Counter bumped once after every processed change.")
 
     def __init__(self, *, executor=None, **kwargs):
-        self.executor = executor
+        self.jobs = JobRunner(executor, on_busy=self._show_busy)
         self._depth, self._pending, self._lock = 0, set(), threading.RLock()
         self._good, self._busy_labels = None, []
         preset = kwargs.pop("fit", None)
@@ -126,10 +127,41 @@ class FitState(tl.HasTraits):
 
     @property
     def frame(self) -> pd.DataFrame:
-        """Rows of :attr:`data` used by the fit, in fit order (kept until the next refit)."""
+        """Rows of :attr:`data` used by the fit, in fit order; row ``i`` is fitted row ``i``.
+
+        Taken by position (the fit's own frame), so a repeated index (for example after
+        ``pd.concat``) cannot pull in other rows.
+        """
         if self._frames.get("rows") is None:
-            self._frames["rows"] = self.data.loc[self.fit.training.index]
+            self._frames["rows"] = _fitted_rows(self.fit, self.data)
         return self._frames["rows"]
+
+    @property
+    def weights(self):
+        """Frequency weights of the fitted rows (``None`` when unweighted)."""
+        return self.fit.training.weights if self.fit is not None and self.fit.training is not None else None
+
+    def default_scenario(self) -> dict:
+        """The default case: weighted median of each number, weighted most common level."""
+        rows, weights = self._summary_rows()
+        return _spec.complete_scenario({}, rows, self.formula, weights=weights)
+
+    def _summary_rows(self):
+        """Rows (and weights) the defaults and ranges are taken from: the fitted rows."""
+        if self.fit is None or self.fit.training is None:
+            return self.data, None
+        return self.frame, self.weights
+
+    def outside_data(self, which="scenario") -> list:
+        """``(name, value, low, high)`` of each number in a scenario outside the fitted rows' range."""
+        values, (rows, _) = getattr(self, which), self._summary_rows()
+        out = []
+        for name, value in values.items():
+            if name in rows.columns and not self.is_categorical(name):
+                lo, hi = _spec.value_range(rows[name])
+                if not lo <= value <= hi:
+                    out.append((name, value, lo, hi))
+        return out
 
     def is_categorical(self, name) -> bool:
         """Whether predictor ``name`` is treated as categorical (dropdown rather than slider)."""
@@ -207,10 +239,23 @@ class FitState(tl.HasTraits):
         return eta, U, np.asarray(sigma, float) * np.ones(len(eta))
 
     def probabilities(self, frame) -> np.ndarray:
-        """Category probabilities ``(n, J)`` of the rows of ``frame`` at the shown thresholds."""
+        """Category probabilities ``(n, J)`` of the rows of ``frame`` at the shown thresholds.
+
+        Computed by the core (:func:`ordwidgets.core.effects.probabilities_at`, the function
+        behind ``FitResult.predict`` for every fit), so every panel shows the core's numbers:
+        rows whose cumulative probabilities cross (non-parallel effects far out, or edited
+        base thresholds) are ``nan`` -- the core gives no probabilities there, and the panels
+        say so (:meth:`crossings`) instead of drawing clipped values.
+        """
+        res = self.fit
+        params = np.concatenate([self.theta, res.params[res.n_thresholds:]])
+        return probabilities_at(res, self.design_of(frame), params, warn=False)
+
+    def crossings(self, frame) -> list:
+        """Per row of ``frame``: the ``(lower cut, upper cut)`` name pairs that cross (``[]`` if none)."""
         _, U, _ = self.cuts_of(frame)
-        ends = np.full((len(U), 1), np.inf)
-        return interval_probability(self.fit.link, np.hstack([-ends, U]), np.hstack([U, ends]))
+        names = list(self.fit.threshold_names)
+        return [[(names[j], names[j + 1]) for j in np.flatnonzero(np.diff(row) < 0)] for row in U]
 
     # ---- validation (one place) --------------------------------------------------------------------
     @tl.validate("thresholds")
@@ -227,9 +272,12 @@ class FitState(tl.HasTraits):
 
     @tl.validate("scenario", "baseline")
     def _valid_scenario(self, proposal):
+        """A partial scenario changes only the predictors it names (merged with the current one)."""
         if self.data is None or not self.formula:
             return dict(proposal["value"])
-        return _spec.complete_scenario(proposal["value"], self.data, self.formula)
+        rows, weights = self._summary_rows()
+        return _spec.complete_scenario(proposal["value"], rows, self.formula, weights=weights,
+                                       current=getattr(self, proposal["trait"].name))
 
     @tl.validate("focus")
     def _valid_focus(self, proposal):
@@ -256,11 +304,28 @@ class FitState(tl.HasTraits):
 
     # ---- edits -----------------------------------------------------------------------------------
     def set_threshold(self, i, value):
-        """Move threshold ``i`` to ``value``, clamped strictly between its neighbours."""
-        theta = self.theta.copy()
-        lo = theta[i - 1] + _MIN_GAP if i > 0 else -np.inf
-        hi = theta[i + 1] - _MIN_GAP if i + 1 < len(theta) else np.inf
-        theta[i] = float(np.clip(value, lo, hi))
+        """Move threshold ``i`` to ``value``; refused if it would reach or pass a neighbour.
+
+        Raises
+        ------
+        ThresholdEditError
+            ``i`` is not a threshold, ``value`` is not a finite number, or the edit would
+            break the order of the thresholds (nothing changes then).
+        """
+        theta, names = self.theta.copy(), list(self.fit.threshold_names)
+        if isinstance(i, (bool, np.bool_)) or not isinstance(i, (int, np.integer)) or not 0 <= i < len(theta):
+            raise ThresholdEditError(f"threshold {i!r} does not exist: this fit has thresholds 0..{len(theta) - 1} "
+                                     f"({', '.join(names)})")
+        if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, float, np.number)) \
+                or not np.isfinite(value):
+            raise ThresholdEditError(f"threshold {names[i]!r} needs a finite number, got {value!r}")
+        for j, beyond in ((i - 1, value <= theta[i - 1] if i > 0 else False),
+                          (i + 1, value >= theta[i + 1] if i + 1 < len(theta) else False)):
+            if beyond:
+                raise ThresholdEditError(
+                    f"threshold {names[i]!r} cannot move to {value:.4g}: it would reach or pass {names[j]!r} "
+                    f"at {theta[j]:.4g}; thresholds keep their order, so the edit was not applied")
+        theta[i] = float(value)
         self.thresholds = tuple(theta)
         return theta[i]
 
@@ -272,7 +337,13 @@ class FitState(tl.HasTraits):
         """Restore the fitted state: fitted thresholds, default scenarios, no selection."""
         with self.batch():
             self.reset_thresholds()
-            self.scenario, self.baseline, self.selection = {}, {}, ()
+            self.reset_scenarios()
+            self.selection = ()
+
+    def reset_scenarios(self):
+        """Set scenario and baseline back to the default case (:meth:`default_scenario`)."""
+        with self.batch():
+            self.scenario = self.baseline = self.default_scenario()
 
     @contextlib.contextmanager
     def batch(self):
@@ -326,8 +397,11 @@ class FitState(tl.HasTraits):
     def _refit(self):
         try:
             res = self.run_inline("refitting", self._run_fit)
+            problem = unusable(res)
         except (OrdinalDataError, ValueError, np.linalg.LinAlgError) as exc:
-            self._restore_good(f"refit refused: {exc}")
+            problem = str(exc)
+        if problem:
+            self._restore_good(f"refit refused: {problem}; the previous fit is kept")
             return {"error"}
         self._install(res)
         return {"fit", "thresholds", "scenario", "focus"}
@@ -342,13 +416,18 @@ class FitState(tl.HasTraits):
         return core_fit(self.model_formula, self.data, link=self.link, **kwargs)
 
     def _install(self, res):
+        problem = unusable(res)
+        if problem:
+            raise OrdinalDataError(f"cannot show this fit: {problem}")
         self._designs, self._frames = {}, {}
         self.fit = res
         self.error = ""
         self._good = {k: getattr(self, k) for k in _SPEC}
         self.thresholds = tuple(res.thresholds.to_numpy())
-        self.scenario = _spec.complete_scenario(self.scenario, self.data, self.formula, lenient=True)
-        self.baseline = _spec.complete_scenario(self.baseline, self.data, self.formula, lenient=True)
+        rows, weights = self._summary_rows()
+        for which in ("scenario", "baseline"):
+            setattr(self, which, _spec.complete_scenario(getattr(self, which), rows, self.formula, lenient=True,
+                                                         weights=weights))
         if self.focus not in self.included:
             self.focus = self.included[0] if self.included else ""
         self.selection = tuple(r for r in self.selection if r < n_training(res))
@@ -384,27 +463,31 @@ class FitState(tl.HasTraits):
         return self._rows.at(theta)
 
     # ---- long work off the interaction path -------------------------------------------------------------
-    def run_long(self, label, work, done):
+    @property
+    def executor(self):
+        """Executor of the long work (``None``: inline); see :class:`~ordwidgets._jobs.JobRunner`."""
+        return self.jobs.executor
+
+    @executor.setter
+    def executor(self, value):
+        self.jobs.executor = value
+
+    def run_long(self, label, work, done, *, kind=None, wanted=None):
         """Run ``work()`` then ``done(result)``: inline without an executor, else in it.
 
         An exception raised by ``work`` is passed to ``done`` as the result.  ``busy`` holds
-        ``label`` meanwhile.  Results of work started for an older fit, or cancelled by
-        :meth:`close`, are dropped (``done`` is not called).
+        ``label`` meanwhile.  A newer job of the same ``kind`` supersedes this one.  ``done``
+        is skipped when ``wanted()`` is false at the end (default: the fit has changed since),
+        and after :meth:`close`.
         """
         fit_then = self.fit
-        self._set_busy(label, True)
+        wanted = wanted or (lambda: self.fit is fit_then)
 
-        def finish(result, cancelled=False):
+        def finish(result):
             with self._lock:
-                self._set_busy(label, False)
-                if self.fit is fit_then and not cancelled:
-                    done(result)
+                done(result)
 
-        if self.executor is None:
-            finish(_result_or_error(work))
-            return
-        future = self.executor.submit(_result_or_error, work)
-        future.add_done_callback(lambda f: finish(None, True) if f.cancelled() else finish(f.result()))
+        self.jobs.submit(kind, label, work, finish, wanted=wanted)
 
     def run_inline(self, label, work):
         """Run ``work()`` now with ``busy`` showing ``label`` (the frontend sees it at once)."""
@@ -419,17 +502,34 @@ class FitState(tl.HasTraits):
             self._busy_labels.append(label)
         else:
             self._busy_labels.remove(label)
-        self.busy = ", ".join(self._busy_labels)
+        self._show_busy()
+
+    def _show_busy(self, text=None):
+        parts = [p for p in (", ".join(self._busy_labels), self.jobs.busy if text is None else text) if p]
+        self.busy = ", ".join(parts)
+
+    def wait(self, timeout=None) -> bool:
+        """Wait for the long work started so far (``False`` if ``timeout`` seconds pass first)."""
+        return self.jobs.wait(timeout)
 
     def request_link_table(self):
-        """Compute the loglik / AIC / BIC of every link for the current spec (once per spec)."""
+        """Compute the loglik / AIC / BIC of every link for the current spec (once per spec).
+
+        The table does not depend on the current link, so a link change while it is computed
+        keeps the request; a spec change supersedes it (the old job is cancelled or its result
+        dropped) and empties :attr:`link_table` until the new rows arrive.  Every request ends
+        with the full table or a row whose ``error`` says why there is none.
+        """
         key = self._spec_key()
         if getattr(self, "_table_key", None) == key:
             return
         self._table_key = key
+        if self.link_table:
+            self.link_table = []
         spec = dict(formula=self.model_formula, data=self.data, options=dict(self.options),
                     extra=_spec.model_kwargs(self.nonparallel, self.scale_by, self.included))
-        self.run_long("comparing links", lambda: _spec.link_rows(**spec), self._set_link_table)
+        self.run_long("comparing links", lambda: _spec.link_rows(**spec), self._set_link_table,
+                      kind="link_table", wanted=lambda: self._spec_key() == key)
 
     def _set_link_table(self, rows):
         self.link_table = rows if isinstance(rows, list) else [{"link": "", "error": str(rows)}]
@@ -464,9 +564,41 @@ class FitState(tl.HasTraits):
         return read_state(cls, path, data, **kwargs)
 
     def close(self):
-        """Stop long work started by this state."""
-        if self.executor is not None:
-            self.executor.shutdown(wait=False, cancel_futures=True)
+        """Stop the long work: queued jobs are cancelled, running ones dropped, threads ended.
+
+        ``busy`` is cleared.  The state stays usable; later long work runs inline.
+        """
+        self.jobs.close()
+        if not self.link_table:  # the comparison was cancelled: ask again on the next request
+            self._table_key = None
+
+
+class ThresholdEditError(OrdinalDataError, tl.TraitError):
+    """A threshold edit that was refused (names the threshold and the neighbour in the way)."""
+
+
+def unusable(res) -> str:
+    """Why a fit cannot be shown (``""`` when it can): thresholds must be finite and increasing,
+    effects finite."""
+    theta = res.params[: res.n_thresholds]
+    bad = [n for n, v in zip(res.names, res.params) if not np.isfinite(v)]
+    if bad:
+        return f"the fit of {res.formula!r} has non-finite estimates ({', '.join(map(str, bad[:5]))})"
+    if np.any(np.diff(theta) <= 0):
+        return f"the fit of {res.formula!r} has thresholds out of order ({', '.join(f'{v:.4g}' for v in theta)})"
+    return ""
+
+
+def _fitted_rows(res, data):
+    """The fitted rows by position: the fit's own frame, else ``data`` by a unique index."""
+    held = res.training.frame if res.training is not None else None
+    if held is not None:
+        return held
+    index = res.training.index
+    if not data.index.is_unique:
+        raise OrdinalDataError("the data frame's index repeats labels and the fit does not hold its rows: "
+                               "call data.reset_index(drop=True) before fitting")
+    return data.loc[index]
 
 
 def n_training(res) -> int:
@@ -474,8 +606,3 @@ def n_training(res) -> int:
     return res.n_training
 
 
-def _result_or_error(work):
-    try:
-        return work()
-    except Exception as exc:  # noqa: BLE001 - handed to ``done``, which shows it
-        return exc

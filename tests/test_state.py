@@ -8,9 +8,21 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as hst
 
 import ordwidgets as ow
-from ordwidgets.state import FitState
+from ordwidgets.state import FitState, ThresholdEditError
 from ordwidgets._statefile import StateFileError
 from tests.ow_sim import FORMULA, data, simulate
+
+
+def try_threshold(state, i, value):
+    """``set_threshold``, where a refusal must leave the thresholds exactly as they were."""
+    before = state.theta
+    try:
+        assert state.set_threshold(i, value) == value == state.theta[i]
+    except ThresholdEditError:
+        lo = before[i - 1] if i > 0 else -np.inf
+        hi = before[i + 1] if i + 1 < len(before) else np.inf
+        assert not lo < value < hi
+        np.testing.assert_array_equal(state.theta, before)
 
 
 @pytest.fixture
@@ -72,10 +84,21 @@ def test_crossing_or_bad_thresholds_refused(state, bad):
     assert state.thresholds == old
 
 
-def test_set_threshold_clamps_between_neighbours(state):
-    theta = state.theta
-    value = state.set_threshold(1, theta[2] + 5)
-    assert theta[1] < value < theta[2] and np.all(np.diff(state.theta) > 0)
+def test_set_threshold_beyond_a_neighbour_is_refused(state):
+    # the user guide: "an edit that would break their order is not accepted"
+    theta, n0 = state.theta, state.updates
+    for i, value in ((1, theta[2] + 5), (1, theta[2]), (2, theta[1] - 1e-9), (0, theta[1] + 1)):
+        with pytest.raises(ow.OrdinalDataError, match="keep their order") as err:
+            state.set_threshold(i, value)
+        assert repr(state.fit.threshold_names[i]) in str(err.value)
+        assert isinstance(err.value, traitlets.TraitError)
+    for i, value in ((5, 0.0), (-1, 0.0), (0, np.nan), (0, "1")):
+        with pytest.raises(ow.OrdinalDataError, match="does not exist|finite number"):
+            state.set_threshold(i, value)
+    np.testing.assert_array_equal(state.theta, theta)
+    assert state.updates == n0
+    inside = (theta[1] + theta[2]) / 2
+    assert state.set_threshold(1, inside) == inside and state.theta[1] == inside
 
 
 def test_batch_processes_once(state):
@@ -186,7 +209,7 @@ def test_random_edits_keep_the_state_consistent(state):
     for _ in range(300):
         action = rng.integers(4)
         if action == 0:
-            state.set_threshold(int(rng.integers(3)), float(rng.normal(1.5, 2)))
+            try_threshold(state, int(rng.integers(3)), float(rng.normal(1.5, 2)))
         elif action == 1:
             state.scenario = {"age": float(rng.uniform(20, 70)), "dose": float(rng.normal())}
         elif action == 2:
@@ -230,7 +253,7 @@ def test_data_and_options_changes_refit(data):
 @given(moves=hst.lists(hst.tuples(hst.integers(0, 2), hst.floats(-50, 50, allow_nan=False)), min_size=1, max_size=25))
 def test_any_slider_sequence_keeps_order_and_exact_loglik(state, moves):
     for i, value in moves:
-        state.set_threshold(i, value)
+        try_threshold(state, i, value)
         assert np.all(np.diff(state.theta) > 0)
     # reference: the core's loglik at the same thresholds (no incremental bookkeeping)
     assert state.loglik == pytest.approx(state.fit.loglik_at(thresholds=state.theta), rel=1e-12, abs=1e-9)
@@ -248,14 +271,16 @@ def test_long_work_background_stale_and_cancelled(data):
     st.run_long("first", lambda: gate.wait(5) and "first done", results.append)
     st.run_long("queued", lambda: "never", results.append)
     assert st.busy == "first, queued"
-    st.close()  # cancels the queued job
     gate.set()
-    pool.shutdown(wait=True)
-    assert results == ["first done"] and st.busy == ""
+    st.close()  # cancels the queued job, drops the running one, ends the thread
+    assert results == [] and st.busy == "" and st.executor is None
+    st.run_long("after close", lambda: "inline", results.append)  # a closed state works inline
+    assert results == ["inline"] and st.busy == ""
     st2 = FitState(data=data, formula=FORMULA, executor=ThreadPoolExecutor(1))
     gate2 = threading.Event()
     st2.run_long("stale", lambda: gate2.wait(5), results.append)
     st2.link = "probit"  # the refit lands while the job still waits
     gate2.set()
-    st2.executor.shutdown(wait=True)
-    assert results == ["first done"] and st2.busy == ""  # the result for the old fit is dropped
+    assert st2.wait(10)
+    assert results == ["inline"] and st2.busy == ""  # the result for the old fit is dropped
+    st2.close()

@@ -1,4 +1,6 @@
 """ThresholdPanel against references outside the widgets (scipy.stats, the core)."""
+import html
+
 import numpy as np
 import pytest
 
@@ -26,12 +28,17 @@ def test_marks_follow_link_threshold_and_scenario(panel):
     assert panel.scenario_eta() != eta_before
 
 
-def test_slider_edits_set_the_state_and_crossing_is_clamped(panel):
+def test_slider_edits_set_the_state_and_crossing_is_refused_on_screen(panel):
     st = panel.state
     panel.sliders[0].value = st.theta[0] - 0.25
-    assert st.thresholds[0] == panel.sliders[0].value
-    panel.sliders[1].value = st.theta[2] + 3.0  # would cross threshold 3
-    assert np.all(np.diff(st.theta) > 0) and panel.sliders[1].value == st.thresholds[1] < st.thresholds[2]
+    assert st.thresholds[0] == panel.sliders[0].value and panel.message.value == ""
+    before = st.thresholds
+    panel.sliders[1].value = st.theta[2] + 3.0  # would cross threshold 3: refused (user guide)
+    assert st.thresholds == before and panel.sliders[1].value == before[1]
+    names = st.fit.threshold_names
+    assert "not applied" in panel.message.value and html.escape(repr(names[2])) in panel.message.value
+    panel.sliders[1].value = before[1] + 0.01  # an accepted edit clears the message
+    assert panel.message.value == "" and st.thresholds[1] == before[1] + 0.01
     check_threshold_panel(panel)
 
 

@@ -121,6 +121,7 @@ class PanelBase(w.VBox):
         self.add_class(css)
         self._syncing = False
         self._owned = []
+        self.closed = False
         state.observe(self._on_update, names="updates")
 
     def _on_update(self, change=None):
@@ -154,6 +155,7 @@ class PanelBase(w.VBox):
 
     def close(self):
         """Unobserve the state and close everything the panel made (widgets, marks, scales)."""
+        self.closed = True
         with contextlib.suppress(ValueError, AttributeError):
             self.state.unobserve(self._on_update, names="updates")
         for item in [*_descendants(self), *self._owned]:

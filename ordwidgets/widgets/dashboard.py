@@ -2,9 +2,8 @@
 from __future__ import annotations
 
 import contextlib
-from concurrent.futures import ThreadPoolExecutor
-
 import ipywidgets as w
+import numpy as np
 
 from ..core import SIGN_CONVENTION, FitResult
 from ..state import FitState, n_training
@@ -31,9 +30,9 @@ class Dashboard(w.VBox):
     registered after the panels', so it changes once every panel has redrawn.
     """
 
-    def __init__(self, state, **kwargs):
+    def __init__(self, state, *, owns_threads=False, **kwargs):
         super().__init__(**kwargs)
-        self.state = state
+        self.state, self.owns_threads = state, owns_threads
         self.add_class("ow-dashboard")
         self.header, self.status, self.busy = w.HTML(), w.HTML(), w.HTML()
         self.status.add_class("ow-status")
@@ -57,7 +56,7 @@ class Dashboard(w.VBox):
         self.header.value = (
             f"<div style='font-size:115%'><b>Cumulative link model</b> &middot; {esc(st.model_formula)} "
             f"&middot; link <b>{esc(res.link.name)}</b> ({esc(res.link.latent)} latent error) &middot; "
-            f"n = {res.n_rows:,} rows{shown}{edited}</div>"
+            f"n = {res.n_rows:,} rows{units_text(res)}{shown}{edited}</div>"
             f"<div style='font-size:90%'>{esc(SIGN_CONVENTION)}</div>"
             f"<div style='font-size:90%;color:#8a5a00'>{esc(CAUTION)}</div>")
         self.status.value = f"<span style='color:#777;font-size:85%'>updates: {st.updates}</span>"
@@ -67,13 +66,27 @@ class Dashboard(w.VBox):
         self.busy.value = f"<span style='color:#b35c00'>&#8987; {esc(busy)}&hellip;</span>" if busy else ""
 
     def close(self):
-        """Close the panels and stop observing the state."""
+        """Close the panels, stop observing the state and end the threads the dashboard started.
+
+        A dashboard that gave its state background threads (``background=True``, or a large
+        fit) stops them here: queued work is cancelled, ``busy`` clears and the state runs
+        later long work inline.  Threads of an executor the caller supplied are the caller's.
+        """
+        if getattr(self, "owns_threads", False):
+            self.state.close()
         for name, handler in (("updates", self._update_header), ("busy", self._update_busy)):
             with contextlib.suppress(ValueError):
                 self.state.unobserve(handler, names=name)
         for panel in getattr(self, "panels", ()):
             panel.close()
         super().close()
+
+
+def units_text(res) -> str:
+    """``", 1,681 weighted units"`` for a weighted fit (the total frequency weight), else ``""``."""
+    if res.training is None or res.training.weights is None:
+        return ""
+    return f", {float(np.sum(res.training.weights)):,.10g} weighted units"
 
 
 def dashboard(state_or_fit, *, data=None, background=None):
@@ -102,8 +115,9 @@ def dashboard(state_or_fit, *, data=None, background=None):
         raise TypeError(f"dashboard needs a FitState or a FitResult, got {type(state_or_fit).__name__}")
     if background is None:
         background = state_or_fit.executor is not None or n_training(state_or_fit.fit) >= BACKGROUND_ROWS
-    if background and state_or_fit.executor is None:
-        state_or_fit.executor = ThreadPoolExecutor(max_workers=2, thread_name_prefix="ow-long")
+    owns = bool(background and state_or_fit.executor is None)
+    if owns:
+        state_or_fit.jobs.start_threads(2)
     elif background is False:
         state_or_fit.executor = None
-    return Dashboard(state_or_fit)
+    return Dashboard(state_or_fit, owns_threads=owns)

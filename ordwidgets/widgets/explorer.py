@@ -32,6 +32,15 @@ def _short(value):
     return fmt(value, 4) if isinstance(value, float) else value
 
 
+def _pct(value, sign=""):
+    """A probability as a percentage (``"-"`` where the core gives none)."""
+    return f"{value:{sign}.1%}" if np.isfinite(value) else "-"
+
+
+def _num(value):
+    return f"{value:+.3f}" if np.isfinite(value) else "-"
+
+
 class ProbabilityExplorer(PanelBase):
     """Probabilities of every category across the focus predictor's observed range.
 
@@ -63,9 +72,11 @@ class ProbabilityExplorer(PanelBase):
         self.copy_button.on_click(lambda _: setattr(self.state, "baseline", dict(self.state.scenario)))
         self.editor_box, self.whatif, self.note, self.legend = self.own(w.VBox(), w.HTML(), w.HTML(), w.HTML())
         self.whatif.add_class("ow-whatif-table")
+        self.caution = self.own(w.HTML())
+        self.caution.add_class("ow-scenario-note")
         self._build_figure()
         self.children = [w.HTML("<b>Category probabilities</b>"), w.HBox([self.focus_dropdown, self.view]),
-                         self.figure, self.legend, figure_toolbar(self.figure, "probabilities"), self.note,
+                         self.figure, self.legend, figure_toolbar(self.figure, "probabilities"), self.note, self.caution,
                          w.HBox([self.target, self.copy_button]), self.editor_box, self.whatif]
         self.redraw_all()
 
@@ -122,6 +133,7 @@ class ProbabilityExplorer(PanelBase):
         self.marker.visible = True
         positions, values, categorical, frame = self.grid_frame()
         probs = st.probabilities(frame)
+        self._update_caution(values, probs)
         colours = category_colours(probs.shape[1])
         shares = self.view.value == "shares"
         bands = None if shares else self._interval_bands(frame)
@@ -135,7 +147,8 @@ class ProbabilityExplorer(PanelBase):
             self._draw_axis(positions, values, categorical)
 
     def _draw_bands(self, x, probs, colours, visible):
-        cum = np.vstack([np.zeros(len(x)), np.cumsum(probs, axis=1).T]).clip(0, 1)
+        # the core's probabilities, not clipped; rows the core refuses are nan (drawn as gaps)
+        cum = np.vstack([np.where(np.isnan(probs[:, 0]), np.nan, 0.0), np.cumsum(probs, axis=1).T])
         self.bands.x, self.bands.y = x, cum
         self.bands.fill_colors, self.bands.colors = colours + [None], colours + ["#444444"]
         self.bands.visible = visible
@@ -180,6 +193,20 @@ class ProbabilityExplorer(PanelBase):
         self.x_axis.tick_labels = {float(p): str(v) for p, v in zip(positions, values)} if categorical else None
         pad = 0.5 if categorical else 0.0
         self.xs.min, self.xs.max = float(positions.min() - pad), float(positions.max() + pad)
+
+    def _update_caution(self, values=None, probs=None):
+        """On-screen notes: grid points the core refuses, scenario values outside the data."""
+        st, notes = self.state, []
+        if probs is not None and np.isnan(probs).any():
+            bad = np.flatnonzero(np.isnan(probs[:, 0]))
+            span = f"{_short(values[bad[0]])} to {_short(values[bad[-1]])}"
+            notes.append(f"no probabilities for {len(bad)} of {len(values)} points ({st.focus} from {span}): the "
+                         "cumulative probabilities cross there, so the model gives none; those points are gaps")
+        for which in ("scenario", "baseline"):
+            for name, value, lo, hi in st.outside_data(which):
+                notes.append(f"{which} {name} = {_short(value)} is outside the data ({_short(lo)} to {_short(hi)}): "
+                             "an extrapolation the data do not support")
+        self.caution.value = "".join(f"<div style='color:#b3261e;font-size:90%'>{esc(n)}</div>" for n in notes)
 
     # ---- scenario editors -------------------------------------------------------------------------------
     def _editing(self):
@@ -227,12 +254,18 @@ class ProbabilityExplorer(PanelBase):
 
     def _update_whatif(self):
         probs = self.whatif_probabilities()
-        rows = [[lv, f"{b:.1%}", f"{s:.1%}", f"{s - b:+.1%}"] for lv, b, s in zip(self.state.fit.levels, *probs)]
+        rows = [[lv, _pct(b), _pct(s), _pct(s - b, "+")] for lv, b, s in zip(self.state.fit.levels, *probs)]
         score = expected_score(probs)
-        rows.append(["expected score (1..J)", fmt(score[0], 4), fmt(score[1], 4), f"{score[1] - score[0]:+.3f}"])
+        rows.append(["expected score (1..J)", fmt(score[0], 4), fmt(score[1], 4), _num(score[1] - score[0])])
+        refused = [which for which, row in zip(("baseline", "scenario"), probs) if np.isnan(row).any()]
         changed = [k for k in self.state.scenario if self.state.scenario[k] != self.state.baseline.get(k)]
         what = ", ".join(f"{k} = {_short(v)}" for k, v in self.state.scenario.items() if k in changed) or "no difference"
-        self.whatif.value = (f"<b>What if</b> (scenario: {esc(what)})"
+        frames = [self.state.scenario_frame(which) for which in refused]
+        crossed = ["; ".join(f"{a} lies above {b}" for a, b in self.state.crossings(f)[0]) for f in frames]
+        refusal = "".join(f"<div style='color:#b3261e'>no probabilities for the {esc(which)}: its cumulative "
+                          f"probabilities cross ({esc(why)}); the model gives none there (shown as -)</div>"
+                          for which, why in zip(refused, crossed))
+        self.whatif.value = (f"<b>What if</b> (scenario: {esc(what)})" + refusal
                              + html_table(["level", "baseline", "scenario", "difference"], rows)
                              + "<div style='font-size:85%;color:#555'>Differences are associations, not "
                                "effects of changing a person's values.</div>")

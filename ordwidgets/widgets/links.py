@@ -79,7 +79,8 @@ class LinkSelector(PanelBase):
         self.state.request_link_table()
         self._po = {}
         self.state.run_long("testing proportional odds", lambda res=self.state.fit: po_test_rows(res),
-                            self._set_po)
+                            self._set_po, kind=("proportional odds", id(self)),
+                            wanted=lambda fit=self.state.fit: self.state.fit is fit and not self.closed)
         self._update_table()
 
     def _set_po(self, rows):

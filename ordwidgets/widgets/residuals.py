@@ -76,7 +76,7 @@ class ResidualPanel(PanelBase):
 
     def __init__(self, state, **kwargs):
         super().__init__(state, "ow-residual-panel", **kwargs)
-        self.tools, self._generation = residual_tools(), 0
+        self.tools = residual_tools()
         self.x_choice = self.own(w.Dropdown(description="against"))
         self.x_choice.observe(self._x_chosen, names="value")
         self.seed = self.own(w.BoundedIntText(value=state.residual_seed, min=0, max=2**31 - 1,
@@ -146,15 +146,19 @@ class ResidualPanel(PanelBase):
         st = self.state
         with self._guard():
             self.seed.value, self.draws.value = st.residual_seed, st.residual_draws
-        self._generation += 1
-        job, x = self._generation, self.x_values()[0]
-        args = (st.fit, st.theta if st.edited else None, st.residual_draws, st.residual_seed, x)
+        args = (st.fit, st.theta if st.edited else None, st.residual_draws, st.residual_seed, self.x_values()[0])
         if "fit" in st.changed or st.executor is None:
             self._draw(residual_view(self.tools, *args))
             return
-        st.run_long("updating residuals", lambda: residual_view(self.tools, *args) if job == self._generation
-                    else None, lambda view: self._draw(view) if view is not None and job == self._generation
-                    else None)
+        fit_then = st.fit
+        st.run_long("updating residuals", lambda: residual_view(self.tools, *args), self._draw_result,
+                    kind=("residuals", id(self)), wanted=lambda: st.fit is fit_then and not self.closed)
+
+    def _draw_result(self, view):
+        if isinstance(view, ResidualView):
+            self._draw(view)
+        else:
+            self.count.value = f"<span style='color:#b3261e'>residuals failed: {esc(view)}</span>"
 
     def x_values(self):
         """Values of the chosen x variable for every fitted row, and tick labels if categorical."""
@@ -224,10 +228,10 @@ class ResidualPanel(PanelBase):
         if not rows.size:
             self.table.value = "<i>brush points in the residual plot to list their rows here</i>"
             return
-        frame = self.state.frame.iloc[rows[:_TABLE_ROWS]]
+        frame = self.state.frame.iloc[rows[:_TABLE_ROWS]]  # by position: index labels may repeat
         cols = [self.state.fit.response] + [c for c in self.state.included if c in frame.columns]
-        body = [[idx] + [frame.at[idx, c] for c in cols] + [fmt(self.view.residuals[p, 0], 4)]
-                for idx, p in zip(frame.index, rows[:_TABLE_ROWS])]
+        body = [[idx] + [frame[c].iat[k] for c in cols] + [fmt(self.view.residuals[p, 0], 4)]
+                for k, (idx, p) in enumerate(zip(frame.index, rows[:_TABLE_ROWS]))]
         more = f" (first {_TABLE_ROWS} shown)" if rows.size > _TABLE_ROWS else ""
         self.table.value = (f"<b>{rows.size:,} selected rows</b>{more}"
                             + html_table(["row"] + cols + ["residual"], body))

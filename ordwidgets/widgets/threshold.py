@@ -5,6 +5,7 @@ import bqplot as bq
 import ipywidgets as w
 import numpy as np
 
+from ..state import ThresholdEditError
 from ._common import (PanelBase, category_colours, esc, figure_toolbar, fmt, is_echo, level_legend, make_figure,
                       rule_xy)
 
@@ -47,9 +48,12 @@ class ThresholdPanel(PanelBase):
                                               layout=w.Layout(width="auto", min_width="150px")))
         self.reset_button.add_class("ow-reset")
         self.reset_button.on_click(lambda _: self.state.reset_thresholds())
-        self.legend, self.note = self.own(w.HTML(), w.HTML())
+        self.legend, self.note, self.message, self.refusal = self.own(w.HTML(), w.HTML(), w.HTML(), w.HTML())
+        self.message.add_class("ow-threshold-message")
+        self.refusal.add_class("ow-crossing-note")
         self.children = [w.HTML("<b>Thresholds on the latent scale</b>"), self.figure,
-                         figure_toolbar(self.figure, "latent"), self.legend, self.note, self.slider_box,
+                         figure_toolbar(self.figure, "latent"), self.legend, self.note, self.refusal,
+                         self.slider_box, self.message,
                          w.HBox([self.reset_button, self.readout])]
         self.redraw_all()
 
@@ -110,10 +114,14 @@ class ThresholdPanel(PanelBase):
         def moved(change):
             if self._syncing or is_echo(self.sliders[i], change["new"], self.state.thresholds[i]):
                 return
-            value = self.state.set_threshold(i, change["new"])
-            if value != change["new"]:
+            try:
+                self.state.set_threshold(i, change["new"])
+            except ThresholdEditError as exc:  # refused (the order rule): say so, put the slider back
+                self.message.value = f"<span style='color:#b3261e'>{esc(exc)}</span>"
                 with self._guard():
-                    self.sliders[i].value = value
+                    self.sliders[i].value = self.state.thresholds[i]
+                return
+            self.message.value = ""
         return moved
 
     def scenario_cuts(self):
@@ -141,6 +149,7 @@ class ThresholdPanel(PanelBase):
         cuts = np.clip(np.concatenate([[self.xs.min], theta, [self.xs.max]]), self.xs.min, self.xs.max)
         xs = np.array([np.linspace(a, b, _REGION_POINTS) for a, b in zip(cuts[:-1], np.maximum(cuts[1:], cuts[:-1]))])
         probs = self.state.probabilities(self.state.scenario_frame())[0]
+        self._show_refusal(probs)
         curve = density(self._grid)
         peak = float(curve.max())
         rx, ry = rule_xy(theta)
@@ -151,6 +160,20 @@ class ThresholdPanel(PanelBase):
             self.rules.x, self.rules.y = rx, ry
             self.labels.x, self.labels.y = xs.mean(axis=1), np.full(len(probs), 1.08 * peak)
             self.labels.text = [f"{p:.1%}" for p in probs]
+            self.regions.visible = self.labels.visible = bool(np.all(np.isfinite(probs)))
+
+    def _show_refusal(self, probs):
+        """Where the core gives no probabilities (cut points cross), say which and why."""
+        if np.all(np.isfinite(probs)):
+            self.refusal.value = ""
+            return
+        pairs = self.state.crossings(self.state.scenario_frame())[0]
+        which = "; ".join(f"{a} lies above {b}" for a, b in pairs)
+        self.refusal.value = (
+            "<span style='color:#b3261e'><b>No probabilities at this scenario:</b> the cumulative "
+            f"probabilities cross ({esc(which)}), so the model gives no valid category probabilities here "
+            "(non-parallel effects outside the data, or edited thresholds). Regions and percentages are not "
+            "drawn.</span>")
 
     def _update_readout(self):
         st = self.state
