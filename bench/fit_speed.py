@@ -28,7 +28,7 @@ from scipy import optimize, special
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 import ordwidgets as ow  # noqa: E402
-from ordwidgets.core.fitting import closed_form_thresholds  # noqa: E402
+from ordwidgets.core.engine import closed_form_thresholds  # noqa: E402
 from ordwidgets.core.objective import SortedDesign, sort_by_category  # noqa: E402
 
 

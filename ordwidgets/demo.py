@@ -128,7 +128,7 @@ def true_parameters(res, truth=None) -> pd.Series:
     -------
     pandas.Series
     """
-    from .core.extended import per_threshold_name, scale_name
+    from .core.layout import per_threshold_name, scale_name
 
     truth = truth or street_tree_truth()
     delta = truth.nonparallel["arterial"]

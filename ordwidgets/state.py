@@ -32,6 +32,7 @@ from .core.effects import probabilities_at
 from . import _spec
 from ._jobs import JobRunner
 from ._loglik import RowLoglik
+from .core.layout import cumulative_predictors, location_predictor
 
 __all__ = ["FitState", "CHANGE_KINDS", "ThresholdEditError", "unusable"]
 
@@ -211,11 +212,7 @@ class FitState(tl.HasTraits):
 
     def _eta(self, D):
         res = self.fit
-        if getattr(res, "layout", None) is not None:
-            from .core.extended import location_predictor
-
-            return location_predictor(res.layout, res.params, D)
-        return D @ res.params[res.n_thresholds:] if D.shape[1] else np.zeros(len(D))
+        return location_predictor(res.layout, res.params, D)
 
     def cuts_of(self, frame):
         """Standardised cut points at the shown thresholds for the rows of ``frame``.
@@ -230,10 +227,6 @@ class FitState(tl.HasTraits):
         """
         res, D = self.fit, self.design_of(frame)
         eta = self._eta(D)
-        if getattr(res, "layout", None) is None:
-            return eta, self.theta[None, :] - eta[:, None], np.ones(len(eta))
-        from .core.extended import cumulative_predictors
-
         params = np.concatenate([self.theta, res.params[res.n_thresholds:]])
         U, sigma = cumulative_predictors(res.layout, params, D)
         return eta, U, np.asarray(sigma, float) * np.ones(len(eta))
@@ -456,7 +449,7 @@ class FitState(tl.HasTraits):
 
     def _loglik_at(self, theta):
         res = self.fit
-        if getattr(res, "layout", None) is not None:
+        if not res.layout.is_parallel:
             return res.loglik_at(thresholds=theta)
         if getattr(self, "_rows_fit", None) is not res:
             self._rows_fit, self._rows = res, RowLoglik(res)

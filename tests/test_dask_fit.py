@@ -14,7 +14,8 @@ import pytest
 from scipy import stats
 
 import ordwidgets as ow
-from ordwidgets.core.dask_fit import PartitionRunner, fit_dask
+from ordwidgets.core.dask_fit import PartitionRunner
+from ordwidgets.core.fitting import fit_dask
 
 from . import reference as R
 from .ow_sim import FORMULA, simulate

@@ -7,8 +7,8 @@ import pytest
 from scipy import differentiate
 
 import ordwidgets as ow
-from ordwidgets.core.extended import ExtendedDesign, ModelLayout
-from ordwidgets.core.extfit import crossing_in_range, fit_layout
+from ordwidgets.core.extended_fit import crossing_in_range, fit_layout
+from ordwidgets.core.layout import ExtendedDesign, ModelLayout
 
 from . import reference_extended as RX
 from .reference import DISTS

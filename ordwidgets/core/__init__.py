@@ -2,7 +2,8 @@
 from .design import encode_response, prepare, threshold_labels
 from .exceptions import (CollinearityError, ConvergenceWarning, DataWarning, OrdinalDataError,
                          SeparationWarning, UnknownLinkError)
-from .fitting import closed_form_thresholds, fit
+from .engine import closed_form_thresholds
+from .fitting import fit, fit_dask
 from .links import LINKS, Link, get_link, link_names
 from .probabilities import category_probabilities, interval_logprob, interval_probability
 from .results import SIGN_CONVENTION, FitResult
@@ -29,6 +30,4 @@ from .inference import compare, compare_links  # noqa: E402
 
 __all__ += ["compare", "compare_links", "CrossingError", "CrossingWarning", "ComparisonError"]
 
-from .dask_fit import fit_dask  # noqa: E402  (imports Dask only when a Dask frame is fitted)
-
-__all__ += ["fit_dask"]
+__all__ += ["fit_dask"]  # (imports Dask only when a Dask frame is fitted)

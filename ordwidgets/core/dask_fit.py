@@ -1,4 +1,4 @@
-"""``fit`` on a Dask DataFrame: the same model and result type, with sums reduced over partitions.
+"""Preparing a fit of a Dask DataFrame: the same model and design protocol, sums reduced over partitions.
 
 The likelihood, its gradient and its Hessian are sums over rows, so every Newton evaluation
 is one task per partition (:func:`~ordwidgets.core.dask_partitions.sums_partition`) whose
@@ -21,16 +21,18 @@ from dataclasses import dataclass, replace
 import numpy as np
 import pandas as pd
 
-from .design import (PreparedData, _design_matrix, _required_columns, check_collinear_moments,
-                     empty_levels, encode_response, split_formula, unusable_notes)
-from .dask_partitions import (PartitionPlan, design_sums, formula_input, moment_partition, prepared_partition,
-                              scan_partition, sums_partition)
+from .dask_tasks import (PartitionPlan, design_sums, formula_input, moment_partition, prepared_partition,
+                         scan_partition, sums_partition)
+from .design import (PreparedData, design_matrix, required_columns, check_collinear_moments,
+                     empty_levels, encode_response, split_formula, threshold_labels, unusable_notes)
+from .engine import PreparedFit, check_enough_rows, separated_columns, user_scale_matrix
 from .exceptions import DataWarning, OrdinalDataError
+from .layout import parallel_layout
 from .links import get_link
 from .progress import progress_for
 from .results import TrainingData
 
-__all__ = ["fit_dask", "is_dask_frame", "PartitionedDesign", "DEFAULT_SAMPLE_ROWS"]
+__all__ = ["partitioned_problem", "is_dask_frame", "PartitionedDesign", "PartitionRunner", "DEFAULT_SAMPLE_ROWS"]
 
 DEFAULT_SAMPLE_ROWS = 20_000
 INSTALL_HINT = "fitting a Dask DataFrame needs the optional extra: pip install 'ordwidgets[dask]'"
@@ -96,7 +98,7 @@ class PartitionRunner:
 
 @dataclass(eq=False)
 class PartitionedDesign:
-    """Stands in for :class:`~ordwidgets.core.objective.SortedDesign` over partitions.
+    """The design protocol of :mod:`ordwidgets.core.engine` over partitions.
 
     ``sums`` sends the parameters to every partition and adds the returned
     log-likelihoods, gradients and Hessians.
@@ -106,6 +108,7 @@ class PartitionedDesign:
     plan: PartitionPlan
     level_counts: np.ndarray
     task: object = sums_partition
+    rows_used: int = 0
 
     @property
     def n_levels(self) -> int:
@@ -128,46 +131,15 @@ class PartitionedDesign:
         return ll, grad, hess
 
 
-def fit_dask(formula, data, *, link="logit", weights=None, levels=None, max_iter=100, tol=1e-10,
-             keep_data=True, callback=None, sample_rows=DEFAULT_SAMPLE_ROWS, seed=0, progress="auto",
-             cache=False, nonparallel=None, scale_by=None):
-    """Fit a cumulative link model to a Dask DataFrame (same model and result as ``fit``).
-
-    Parameters
-    ----------
-    formula, link, weights, levels, max_iter, tol, callback
-        As in :func:`ordwidgets.core.fitting.fit`; ``weights`` must name a column.
-    data : dask.dataframe.DataFrame
-    keep_data : bool
-        Keep a sample of rows in ``result.training`` (for residuals and display).
-    sample_rows : int
-        Size of that sample: uniform without replacement, reproducible for the same data,
-        partitioning and ``seed``.  ``predict()``, ``error_bounds()`` and ``loglik_at()``
-        without new data refer to the sample; ``loglik``, estimates and standard errors to
-        all rows.
-    seed : int
-        Seed of the sample.
-    progress : {"auto", True, False} or callable
-        Status line with the stage and each Newton step (log-likelihood, largest score):
-        ``"auto"`` in notebooks only; see :func:`ordwidgets.core.progress.progress_for`.
-    cache : bool
-        Keep every partition's prepared design (standardised float columns sorted by
-        category, 8 bytes per row and column) in memory, on the workers with
-        ``dask.distributed``, instead of reading and encoding the rows again at every Newton
-        step: several times faster, but memory then grows with the number of rows.
-    nonparallel, scale_by
-        Not available for Dask frames yet (refused).
+def partitioned_problem(formula, data, *, weights=None, levels=None, callback=None, sample_rows=DEFAULT_SAMPLE_ROWS,
+                        seed=0, progress="auto", cache=False, nonparallel=None, scale_by=None):
+    """Prepare the fit of a Dask frame (see :func:`ordwidgets.core.fitting.fit_dask`).
 
     Returns
     -------
-    FitResult
-        ``options`` records ``engine="dask"``, the partition count and the sample settings;
-        ``training.sampled_from`` the number of rows the sample was drawn from.
-
-    Raises
-    ------
-    KeyboardInterrupt
-        Passed on unchanged (running cluster tasks are cancelled; nothing is left half-built).
+    problem : PreparedFit
+    show : Progress
+        The status line, also the Newton callback.
     """
     if nonparallel or scale_by:
         raise ValueError("nonparallel= and scale_by= are not supported for Dask frames yet; "
@@ -175,14 +147,12 @@ def fit_dask(formula, data, *, link="logit", weights=None, levels=None, max_iter
     if weights is not None and not isinstance(weights, str):
         raise OrdinalDataError("for a Dask frame weights= must name a column of the frame")
     _require_dask()
-    lk = get_link(link)
     plan, rhs = _plan(formula, data, weights)
     used = list(dict.fromkeys([plan.response, *plan.columns, *([weights] if weights else [])]))
     runner = PartitionRunner(data[used])  # only these columns are read
     show = progress_for(progress, callback, prefix=f"ordwidgets fit on {runner.n_partitions} partitions · ")
     try:
-        return _fit(formula, rhs, plan, runner, show, lk, levels, max_iter, tol, sample_rows if keep_data else 0, seed,
-                    cache)
+        return _prepare(rhs, plan, runner, show, levels, sample_rows, seed, cache), show
     except KeyboardInterrupt:
         show.show("interrupted; no result was made")
         raise
@@ -194,37 +164,43 @@ def _plan(formula, data, weights):
         raise OrdinalDataError(f"response column {response!r} is not in the data")
     if weights is not None and weights not in data.columns:
         raise OrdinalDataError(f"weights column {weights!r} is not in the data")
-    columns = _required_columns(rhs, data)
+    columns = required_columns(rhs, data)
     return PartitionPlan(response, tuple(columns), weights, categorical=_categorical(data._meta, columns)), rhs
 
 
-def _fit(formula, rhs, plan, runner, show, lk, levels, max_iter, tol, sample_rows, seed, cache):
-    from .fitting import _maximise, _result, check_enough_rows
-
+def _prepare(rhs, plan, runner, show, levels, sample_rows, seed, cache):
     show.show("pass 1: checking rows and learning levels")
     plan, counts, scan, notes = _learn_levels(runner, plan, levels, rhs)
     m = len(counts) - 1
     show.show("pass 2: column moments and sample")
     moments = runner.map(moment_partition, plan, _cutoff(sample_rows, scan["rows"]), seed, numbered=True)
     mean, cov = _combine_moments(moments, len(plan.names))
+    low, high = _combine_ranges(moments)
     training = _sample(moments, sample_rows, scan["rows"]) if sample_rows else None
     del moments  # the sample candidates are not needed any more
     check_enough_rows(scan["nonzero"], m + len(plan.names))
     check_collinear_moments(plan.names, mean, cov)
     sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
     plan = replace(plan, mean=mean, sd=np.where(sd > 0, sd, 1.0))
-    design = PartitionedDesign(runner, plan, counts)
+    design = PartitionedDesign(runner, plan, counts, rows_used=scan["nonzero"])
     if cache:
         show.show("pass 3: preparing the design kept in memory")
-        design = PartitionedDesign(runner.kept(prepared_partition, plan), plan, counts, task=design_sums)
-    fitted = _maximise(design, lk, m, max_iter, tol, show, formula)
-    prep = PreparedData(np.empty((0, len(plan.names))), np.empty(0, np.intp), None, plan.levels_kept,
+        design = PartitionedDesign(runner.kept(prepared_partition, plan), plan, counts, task=design_sums,
+                                   rows_used=scan["nonzero"])
+    layout = parallel_layout(plan.names, threshold_labels(plan.levels_kept))
+    meta = PreparedData(np.empty((0, len(plan.names))), np.empty(0, np.intp), None, plan.levels_kept,
                         plan.names, plan.response, rhs, plan.spec, pd.RangeIndex(0), notes)
-    options = _options(plan.weights, levels, runner, sample_rows, seed, cache)
-    result = _result(prep, lk, fitted, plan.mean, plan.sd, formula=formula, n_obs=float(counts.sum()),
-                     n_rows=scan["rows"], training=training, options=options)
-    show.show(f"done: {result.message}, log-likelihood {result.loglik:.8g}")
-    return result
+    return PreparedFit(design=design, layout=layout, to_user=user_scale_matrix(layout, plan.mean, plan.sd),
+                       meta=meta, training=training, n_rows=scan["rows"],
+                       separated=tuple(separated_columns(low, high, plan.names)),
+                       options=_options(plan.weights, levels, runner, sample_rows, seed, cache))
+
+
+def _combine_ranges(parts):
+    """Per-category smallest and largest column values over all partitions."""
+    low = np.minimum.reduce([q["low"] for q in parts])
+    high = np.maximum.reduce([q["high"] for q in parts])
+    return low, high
 
 
 def _options(weights, levels, runner, sample_rows, seed, cache):
@@ -250,7 +226,7 @@ def _learn_levels(runner, plan, levels, rhs):
     for n in notes:
         warnings.warn(n, DataWarning, stacklevel=5)
     template = formula_input(_template(scan["head"], scan["categories"]), plan.categorical)
-    _, names, spec = _design_matrix(rhs, template)
+    _, names, spec = design_matrix(rhs, template)
     if names and getattr(spec, "transform_state", None):
         raise OrdinalDataError(
             f"the predictors {rhs!r} use transforms that learn from the data (such as center, "

@@ -97,7 +97,7 @@ def encode_response(values, levels=None, *, name="response"):
     )
 
 
-def _required_columns(rhs, data):
+def required_columns(rhs, data):
     from formulaic import Formula
 
     try:
@@ -114,7 +114,7 @@ def _required_columns(rhs, data):
     return names
 
 
-def _check_mixed(data, columns):
+def check_mixed_types(data, columns):
     for c in columns:
         col = data[c]
         if col.dtype != object:
@@ -129,7 +129,7 @@ def _check_mixed(data, columns):
             )
 
 
-def _weights_array(weights, data):
+def weights_array(weights, data):
     if weights is None:
         return None
     if isinstance(weights, str):
@@ -204,7 +204,7 @@ def _drop_unusable(data, response, columns, w):
     return keep, notes
 
 
-def _design_matrix(rhs, data):
+def design_matrix(rhs, data):
     from formulaic import model_matrix
 
     try:
@@ -265,13 +265,13 @@ def prepare(formula, data, *, weights=None, levels=None):
     response, rhs = split_formula(formula)
     if response not in data.columns:
         raise OrdinalDataError(f"response column {response!r} is not in the data")
-    columns = _required_columns(rhs, data)
-    _check_mixed(data, columns)
-    w = _weights_array(weights, data)
+    columns = required_columns(rhs, data)
+    check_mixed_types(data, columns)
+    w = weights_array(weights, data)
     keep, notes = _drop_unusable(data, response, columns, w)
     data = data if bool(keep.all()) else data.loc[keep]
     y, lv = encode_response(data[response], levels, name=response)
-    X, names, spec = _design_matrix(rhs, data)
+    X, names, spec = design_matrix(rhs, data)
     warr = None if w is None else w[keep].to_numpy(float)
     y, lv, more = _drop_empty_levels(y, lv, warr, response)
     notes += more

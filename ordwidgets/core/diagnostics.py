@@ -58,7 +58,7 @@ def qq_points(residuals, reference, *, quantiles=1000, weights=None) -> pd.DataF
         Columns ``theoretical`` (reference quantiles) and ``sample`` (draw-averaged sample
         quantiles), one row per probability, increasing.
     """
-    return _qq_from_sorted(SortedDraws.of(residuals, weights), reference, quantiles)
+    return qq_from_sorted(SortedDraws.of(residuals, weights), reference, quantiles)
 
 
 def distance_test(residuals, reference, *, weights=None):
@@ -71,7 +71,7 @@ def distance_test(residuals, reference, *, weights=None):
         (:data:`scipy.stats.kstwo`) for ``n <= 10,000``, asymptotic
         (:data:`scipy.stats.kstwobign` at ``sqrt(n) D``, Kolmogorov 1933) above.
     """
-    return _ks_from_sorted(SortedDraws.of(np.asarray(residuals, float).ravel(), weights), reference)
+    return ks_from_sorted(SortedDraws.of(np.asarray(residuals, float).ravel(), weights), reference)
 
 
 @dataclass(frozen=True, eq=False)
@@ -95,7 +95,7 @@ class SortedDraws:
         return cls(np.take_along_axis(r, order, axis=0), np.cumsum(w, axis=0) / total, w / total, total)
 
 
-def _qq_from_sorted(sd, reference, quantiles):
+def qq_from_sorted(sd, reference, quantiles):
     k = int(min(quantiles, sd.values.shape[0]))
     probs = (np.arange(k) + 0.5) / k
     picked = [sd.values[np.minimum(np.searchsorted(sd.ecdf[:, min(j, sd.ecdf.shape[1] - 1)], probs),
@@ -103,7 +103,7 @@ def _qq_from_sorted(sd, reference, quantiles):
     return pd.DataFrame({"theoretical": reference.ppf(probs), "sample": np.mean(picked, axis=0)})
 
 
-def _ks_from_sorted(sd, reference):
+def ks_from_sorted(sd, reference):
     s, hi = sd.values[:, 0], sd.ecdf[:, 0]
     lo = hi - sd.step[:, 0]
     g = reference.cdf(s)

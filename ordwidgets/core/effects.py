@@ -1,7 +1,7 @@
 """Predicted probabilities with delta-method intervals, and average marginal effects.
 
 Both work for every fit (parallel, per-threshold and scale effects) through the layout of
-:mod:`ordwidgets.core.extended`.  Derivatives of the category probabilities with respect to
+:mod:`ordwidgets.core.layout`.  Derivatives of the category probabilities with respect to
 the parameters are analytic: ``P_k = F(u_k) - F(u_{k-1})`` so
 ``dP_k = f(u_k) du_k - f(u_{k-1}) du_{k-1}``.
 
@@ -17,14 +17,15 @@ import pandas as pd
 from scipy import special, stats
 
 from .exceptions import CrossingWarning
-from .extended import cumulative_predictors, end_jacobian, layout_of
+from .layout import cumulative_predictors, end_jacobian, layout_of
 from .probabilities import interval_probability
 
 __all__ = ["probabilities_at", "probability_jacobian", "prediction_intervals", "average_marginal_effects",
            "logit_interval"]
 
 
-def _check_level(level):
+def check_level(level):
+    """Refuse a coverage that is not a number strictly between 0 and 1."""
     if isinstance(level, bool) or not (isinstance(level, (int, float, np.floating)) and 0 < level < 1):
         raise ValueError(f"level must be strictly between 0 and 1, got {level!r}")
 
@@ -100,7 +101,7 @@ def prediction_intervals(res, data=None, *, kind="probabilities", level=0.95):
         ``(part, level)`` with ``part`` in ``"estimate"``, ``"lower"``, ``"upper"``, e.g.
         ``frame["lower"]`` is a frame with one column per response level.
     """
-    _check_level(level)
+    check_level(level)
     if kind not in ("probabilities", "cumulative"):
         raise ValueError(f"intervals are available for kind='probabilities' or 'cumulative', got {kind!r}")
     D = res.design(data)

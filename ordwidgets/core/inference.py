@@ -18,9 +18,9 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, stats
 
-from .effects import _check_level
+from .effects import check_level
 from .exceptions import ComparisonError, ConvergenceWarning, CrossingError
-from .extended import ExtendedDesign, all_training_rows, layout_of
+from .layout import ExtendedDesign, all_training_rows, layout_of
 from .links import get_link, link_names
 from .optimize import newton_maximize
 
@@ -31,7 +31,7 @@ _MAX_DOUBLINGS = 10
 
 def wald_intervals(res, level=0.95):
     """``estimate -+ z * SE`` for every parameter (rows aligned with ``res.std_errors``)."""
-    _check_level(level)
+    check_level(level)
     q = stats.norm.isf((1 - level) / 2)
     est, se = pd.Series(res.params, index=res.names), res.std_errors
     return pd.DataFrame({"lower": est - q * se, "upper": est + q * se})
@@ -145,7 +145,7 @@ def profile_intervals(res, level=0.95, *, which=None):
     which : list of str, optional
         Parameter names to profile (default: all); the others are ``nan``.
     """
-    _check_level(level)
+    check_level(level)
     tr = all_training_rows(res, "a profile interval")
     design = ExtendedDesign(layout_of(res), tr.X, tr.y, tr.weights)
     z = stats.norm.isf((1 - level) / 2)

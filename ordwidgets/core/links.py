@@ -206,7 +206,7 @@ class Probit(Link):
         return -special.ndtri(q)
 
 
-def _log1mexp(x):
+def log1mexp(x):
     """``log(1 - exp(x))`` for ``x <= 0`` without cancellation (Maechler's split)."""
     x = np.asarray(x, dtype=float)
     with np.errstate(divide="ignore"):
@@ -231,7 +231,7 @@ class CLogLog(Link):
     def _logcdf(self, t):
         # log(1 - exp(-e^t)) = t - e^t / 2 + O(e^{2t}) far in the lower tail.
         with np.errstate(over="ignore"):
-            return np.where(t < -30, t - 0.5 * np.exp(np.minimum(t, 0)), _log1mexp(-np.exp(t)))
+            return np.where(t < -30, t - 0.5 * np.exp(np.minimum(t, 0)), log1mexp(-np.exp(t)))
 
     def _logsf(self, t):
         with np.errstate(over="ignore"):
@@ -279,7 +279,7 @@ class LogLog(Link):
     def _logsf(self, t):
         # log(1 - exp(-e^{-t})) = -t - e^{-t} / 2 + O(e^{-2t}) far in the upper tail.
         with np.errstate(over="ignore"):
-            return np.where(t > 30, -t - 0.5 * np.exp(-np.maximum(t, 0)), _log1mexp(-np.exp(-t)))
+            return np.where(t > 30, -t - 0.5 * np.exp(-np.maximum(t, 0)), log1mexp(-np.exp(-t)))
 
     def _logpdf(self, t):
         with np.errstate(over="ignore"):

@@ -21,10 +21,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .engine import safe_sd, separated_columns, shifted_moments
 from .links import get_link
 from .probabilities import interval_logprob
 
-__all__ = ["row_terms", "SortedDesign", "sort_by_category"]
+__all__ = ["row_terms", "SortedDesign", "sort_by_category", "sorted_standardised", "SortedColumns",
+           "category_ranges"]
 
 DEFAULT_CHUNK = 65_536
 
@@ -126,6 +128,85 @@ def sort_by_category(y, n_levels):
     return order, np.concatenate([[0], np.cumsum(counts)])
 
 
+@dataclass(frozen=True, eq=False)
+class SortedColumns:
+    """Columns sorted by category and standardised, with what was learnt on the way.
+
+    Attributes
+    ----------
+    X : ndarray, shape (n, p), Fortran order
+        ``(x - mean) / sd`` in sorted row order.
+    mean, sd : ndarray, shape (p,)
+    cov : ndarray, shape (p, p)
+        Weighted population covariance of the columns (collinearity check).
+    low, high : ndarray, shape (J, p)
+        Smallest and largest value of each column (user scale) in each category, over the
+        rows with positive weight (separation check).
+    """
+
+    X: np.ndarray
+    mean: np.ndarray
+    sd: np.ndarray
+    cov: np.ndarray
+    low: np.ndarray
+    high: np.ndarray
+
+    def separated(self, names):
+        """Columns whose non-zero rows all sit in one end category (see ``separated_columns``)."""
+        return separated_columns(self.low, self.high, names)
+
+
+def category_ranges(Xs, bounds, weights=None):
+    """Smallest and largest value of each column per category (rows sorted by category;
+    rows with positive weight only), shape ``(J, p)`` each."""
+    J, p = len(bounds) - 1, Xs.shape[1]
+    low, high = np.full((J, p), np.inf), np.full((J, p), -np.inf)
+    for k in range(J):
+        block = Xs[bounds[k]:bounds[k + 1]]
+        if weights is not None:
+            w = weights[bounds[k]:bounds[k + 1]]
+            if not np.all(w > 0):
+                block = block[w > 0]
+        if len(block) and p:
+            low[k], high[k] = block.min(axis=0), block.max(axis=0)
+    return low, high
+
+
+def sorted_standardised(X, order, bounds, weights=None):
+    """Rows of ``X`` in ``order``, centred and scaled, with the weighted moments.
+
+    One gather into a column-major copy, one min/max pass per category (separation check)
+    and one Gram product give the means, the covariance (for the collinearity check) and
+    the scaling; columns are first shifted by their first value so that the moments do not
+    cancel for columns far from zero.
+
+    Parameters
+    ----------
+    X : ndarray, shape (n, p)
+    order, bounds : from :func:`sort_by_category`
+    weights : ndarray or None
+        Weights already in sorted order.
+
+    Returns
+    -------
+    SortedColumns
+    """
+    n, p = X.shape
+    Xs = np.empty((n, p), order="F")
+    for j in range(p):
+        np.take(X[:, j], order, out=Xs[:, j])
+    low, high = category_ranges(Xs, bounds, weights)
+    if p == 0 or n == 0:
+        return SortedColumns(Xs, np.zeros(p), np.ones(p), np.zeros((p, p)), low, high)
+    shift = Xs[0].copy()
+    Xs -= shift
+    centre, cov = shifted_moments(Xs, weights)
+    sd = safe_sd(cov)
+    Xs -= centre
+    Xs /= sd
+    return SortedColumns(Xs, shift + centre, sd, cov, low, high)
+
+
 def _segments(bounds, chunk):
     for k in range(len(bounds) - 1):
         for s in range(int(bounds[k]), int(bounds[k + 1]), chunk):
@@ -138,24 +219,45 @@ def _wsum(w, v):
 
 @dataclass(eq=False)
 class SortedDesign:
-    """Design matrix with rows sorted by response category.
+    """Rows sorted by response category: the engine's design for every in-memory model.
+
+    Implements the design protocol of :mod:`ordwidgets.core.engine` for
+    ``P(Y <= j | x) = F((theta_j - x'beta - w'gamma_j) / exp(z'zeta))`` (McCullagh 1980;
+    partial proportional odds, Peterson & Harrell 1990): parameters
+    ``[theta (m), beta (p), gamma (q blocks of m), zeta (r)]``.  A plain fit has no ``W``
+    and no ``Z``.  Within one category all rows use the same two cuts, so each segment
+    needs one weighted Gram product of ``X`` and one product of ``X'`` with a few columns
+    (threshold, per-threshold and scale parts); the blocks of ``W`` and ``Z`` are small.
 
     Parameters
     ----------
     X : ndarray, shape (n, p)
-        Predictor columns (no intercept), rows sorted by category.
+        Parallel location columns (no intercept), rows sorted by category.
     bounds : ndarray, shape (J + 1,)
         Block bounds of the categories in ``X``.
     weights : ndarray or None
         Frequency weights in the same row order (``None`` for all ones).
     chunk : int
         Maximum rows per segment (bounds temporary memory).
+    W : ndarray, shape (n, q), optional
+        Columns with a separate effect at each threshold.
+    Z : ndarray, shape (n, r), optional
+        Columns of the latent scale ``exp(z'zeta)``.
     """
 
     X: np.ndarray
     bounds: np.ndarray
     weights: np.ndarray | None = None
     chunk: int = DEFAULT_CHUNK
+    W: np.ndarray | None = None
+    Z: np.ndarray | None = None
+
+    def __post_init__(self):
+        n = len(self.X)
+        if self.W is None:
+            self.W = np.empty((n, 0))
+        if self.Z is None:
+            self.Z = np.empty((n, 0))
 
     @property
     def n_levels(self) -> int:
@@ -163,7 +265,18 @@ class SortedDesign:
 
     @property
     def n_params(self) -> int:
-        return self.n_levels - 1 + self.X.shape[1]
+        m = self.n_levels - 1
+        return m + self.X.shape[1] + self.W.shape[1] * m + self.Z.shape[1]
+
+    @property
+    def rows_used(self) -> int:
+        """Rows with positive weight."""
+        return len(self.X) if self.weights is None else int(np.count_nonzero(self.weights))
+
+    @property
+    def y(self) -> np.ndarray:
+        """Category code of each (sorted) row."""
+        return np.repeat(np.arange(self.n_levels), np.diff(self.bounds))
 
     def counts(self):
         """Weighted number of rows in each category."""
@@ -172,8 +285,32 @@ class SortedDesign:
         b = self.bounds
         return np.array([self.weights[b[k]:b[k + 1]].sum() for k in range(len(b) - 1)])
 
+    def split(self, params):
+        """``theta (m,), beta (p,), gamma (q, m), zeta (r,)``."""
+        m, p, q = self.n_levels - 1, self.X.shape[1], self.W.shape[1]
+        b, g = m + p, m + p + q * m
+        return params[:m], params[m:b], params[b:g].reshape(q, m), params[g:]
+
+    def gaps(self, params):
+        """Gaps between adjacent cuts ``theta_j - w'gamma_j`` per row, ``(n, m - 1)``."""
+        theta, _, gamma, _ = self.split(np.asarray(params, float))
+        gaps = np.diff(theta)[None, :]
+        if gamma.size:
+            gaps = gaps - self.W @ np.diff(gamma, axis=1)
+        return np.broadcast_to(gaps, (len(self.X), len(theta) - 1))
+
+    def feasible(self, params):
+        """Finite parameters and strictly increasing cuts for every row."""
+        params = np.asarray(params, float)
+        if not np.all(np.isfinite(params)):
+            return False
+        theta, _, gamma, _ = self.split(params)
+        if not gamma.size:
+            return bool(np.all(np.diff(theta) > 0))
+        return bool(np.all(self.gaps(params) > 0))
+
     def loglik(self, link, params):
-        """Log-likelihood at ``params = [theta, beta]``."""
+        """Log-likelihood at ``params``."""
         return self.sums(link, params, order=0)[0]
 
     def sums(self, link, params, *, order=2):
@@ -182,8 +319,7 @@ class SortedDesign:
         Parameters
         ----------
         link : Link or str
-        params : ndarray, shape (J - 1 + p,)
-            Thresholds followed by effects.
+        params : ndarray, shape (n_params,)
         order : {0, 1, 2}
             Highest derivative to compute.
 
@@ -192,61 +328,144 @@ class SortedDesign:
         (loglik, grad or None, hess or None)
         """
         link = get_link(link)
-        J, p = self.n_levels, self.X.shape[1]
-        m = J - 1
-        theta, beta = params[:m], params[m:]
+        params = np.asarray(params, float)
+        parts = self.split(params)
+        k_all = len(params)
+        acc = _Accumulator(self, np.zeros(k_all) if order >= 1 else None,
+                           np.zeros((k_all, k_all)) if order >= 2 else None)
         ll = 0.0
-        g = np.zeros(m + p) if order >= 1 else None
-        H = np.zeros((m + p, m + p)) if order >= 2 else None
         for k, s, e in _segments(self.bounds, self.chunk):
-            Xs = self.X[s:e]
-            w = None if self.weights is None else self.weights[s:e]
-            eta = Xs @ beta
-            t = row_terms(
-                link,
-                upper=theta[k] - eta if k < m else None,
-                lower=theta[k - 1] - eta if k > 0 else None,
-                hessian=order >= 2,
-            )
-            ll += _wsum(w, t["logp"])
-            if order >= 1:
-                _accumulate(g, H, t, k, m, Xs, w)
-        return ll, g, H
+            ll += self._segment(link, parts, k, s, e, order, acc)
+            if not np.isfinite(ll):
+                return -np.inf, None, None
+        if acc.H is not None:
+            acc.H += acc.C + acc.C.T
+        return ll, acc.g, acc.H
+
+    def _segment(self, link, parts, k, s, e, order, acc):
+        theta, beta, gamma, zeta = parts
+        m = self.n_levels - 1
+        X, W, Z = self.X[s:e], self.W[s:e], self.Z[s:e]
+        w = None if self.weights is None else self.weights[s:e]
+        eta = X @ beta if beta.size else np.zeros(e - s)
+        inv = None
+        if zeta.size:
+            with np.errstate(over="ignore"):
+                inv = np.exp(-(Z @ zeta))
+        ends = []
+        for j in (k, k - 1):
+            if 0 <= j < m:
+                a = theta[j] - eta
+                if gamma.size:
+                    a = a - W @ gamma[:, j]
+                ends.append(a if inv is None else a * inv)
+            else:
+                ends.append(None)
+        t = row_terms(link, upper=ends[0], lower=ends[1], hessian=order >= 2)
+        if w is not None and np.any(w == 0):
+            t = {key: (None if v is None else np.where(w > 0, v, 0.0)) for key, v in t.items()}
+        ll = _wsum(w, t["logp"])
+        if order >= 1 and np.isfinite(ll):
+            acc.add(k, m, X, W, Z, w, inv, ends, t)
+        return ll
 
 
-def _accumulate(g, H, t, k, m, Xs, w):
-    """Add one segment's gradient and Hessian terms (chain rule through u and l).
+def _nz(v, n):
+    return np.zeros(n) if v is None else v
 
-    With ``u = theta_k - eta`` and ``l = theta_{k-1} - eta``: the threshold parts are
-    scalar sums, the threshold-effect block and the effect gradient are matrix-vector
-    products (measured faster here than one product with three columns), and the effect
-    block is one weighted Gram product.
+
+class _Accumulator:
+    """Adds one segment's gradient and Hessian terms (chain rule through the cuts).
+
+    With ``u = (theta_k - x'beta - w'gamma_k) / sigma`` (upper end) and ``l`` the same at
+    ``k - 1``: ``du/dtheta_k = 1/sigma``, ``du/dbeta = -x/sigma``, ``du/dgamma_k = -w/sigma``,
+    ``du/dzeta = -u z`` and ``d2u/(dpsi dzeta') = -(du/dpsi) z'``.  The effect block is one
+    weighted Gram product of ``X``; everything else is ``X'`` times a few columns or a small
+    product of the threshold / per-threshold / scale columns.  Blocks between two different
+    groups of parameters are added once to ``C``; the Hessian is ``H + C + C'``.
     """
-    zero = np.zeros(len(Xs))
-    get = lambda key: zero if t[key] is None else t[key]  # noqa: E731
-    gu, gl = get("gu"), get("gl")
-    wt = 1.0 if w is None else w
-    if k < m:
-        g[k] += _wsum(w, gu)
-    if k > 0:
-        g[k - 1] += _wsum(w, gl)
-    if H is None:
-        g[m:] -= Xs.T @ (wt * (gu + gl))
-        return
-    huu, hll, hul = get("huu"), get("hll"), get("hul")
-    g[m:] -= Xs.T @ (wt * (gu + gl))
-    if k < m:
-        H[k, k] += _wsum(w, huu)
-        H[k, m:] -= Xs.T @ (wt * (huu + hul))
-    if k > 0:
-        H[k - 1, k - 1] += _wsum(w, hll)
-        H[k - 1, m:] -= Xs.T @ (wt * (hll + hul))
-    if 0 < k < m:
-        c = _wsum(w, hul)
-        H[k, k - 1] += c
-        H[k - 1, k] += c
-    H[m:, m:] += _weighted_gram(Xs, wt * (huu + hll + 2.0 * hul))
-    H[m:, :m] = H[:m, m:].T
+
+    def __init__(self, design, g, H):
+        self.g, self.H = g, H
+        self.C = None if H is None else np.zeros_like(H)
+        m = design.n_levels - 1
+        self.m, self.p, self.q, self.r = m, design.X.shape[1], design.W.shape[1], design.Z.shape[1]
+        self.beta = slice(m, m + self.p)
+        self.zeta = slice(m + self.p + self.q * m, m + self.p + self.q * m + self.r)
+
+    def _dest(self, j):
+        """Parameter indices of the threshold-like columns ``[1, -w]`` at cut ``j``."""
+        base = self.m + self.p
+        return np.array([j] + [base + c * self.m + j for c in range(self.q)])
+
+    def add(self, k, m, X, W, Z, w, inv, ends, t):
+        n = len(X)
+        wt = 1.0 if w is None else w
+        present = [e is not None for e in ends]
+        gu, gl = (_nz(t["gu"], n) * wt, _nz(t["gl"], n) * wt)
+        vu, vl = (np.zeros(n) if e is None else e for e in ends)
+        P = np.column_stack([np.ones(n), -W]) if self.q else np.ones((n, 1))
+        if inv is not None:
+            P = P * inv[:, None]
+        one = 1.0 if inv is None else inv
+        dests = [self._dest(k) if present[0] else None, self._dest(k - 1) if present[1] else None]
+        g = self.g
+        for dest, ge in zip(dests, (gu, gl)):
+            if dest is not None:
+                g[dest] += P.T @ ge
+        if self.H is None:
+            g[self.beta] -= X.T @ ((gu + gl) * one)
+            if self.r:
+                g[self.zeta] -= Z.T @ (gu * vu + gl * vl)
+            return
+        huu, hll, hul = (_nz(t[key], n) * wt for key in ("huu", "hll", "hul"))
+        cols = [(gu + gl) * one]
+        for dest, c in zip(dests, (huu + hul, hll + hul)):
+            if dest is not None:
+                cols.extend((P * (c * one)[:, None]).T)
+        if self.r:
+            cz = huu * vu + hll * vl + hul * (vu + vl) + gu + gl
+            cols.extend((Z * (cz * one)[:, None]).T)
+        T = np.column_stack(cols) if len(cols) > 1 else cols[0][:, None]
+        G = X.T @ T if self.p else np.zeros((0, T.shape[1]))
+        self._place(G, dests, huu, hll, hul, gu, gl, vu, vl, P, Z, X, one)
+
+    def _place(self, G, dests, huu, hll, hul, gu, gl, vu, vl, P, Z, X, one):
+        g, H, C, b, z = self.g, self.H, self.C, self.beta, self.zeta
+        g[b] -= G[:, 0]
+        col = 1
+        width = P.shape[1]
+        for dest in dests:
+            if dest is not None:
+                C[dest[:, None], np.arange(b.start, b.stop)[None, :]] -= G[:, col:col + width].T
+                col += width
+        if self.r:
+            C[b, z] += G[:, col:col + self.r]
+            g[z] -= Z.T @ (gu * vu + gl * vl)
+        if self.p:
+            H[b, b] += _weighted_gram(X, (huu + hll + 2.0 * hul) * one * one)
+        self._threshold_blocks(dests, huu, hll, hul, P)
+        if self.r:
+            self._scale_blocks(dests, huu, hll, hul, gu, gl, vu, vl, P, Z)
+
+    def _threshold_blocks(self, dests, huu, hll, hul, P):
+        H = self.H
+        du, dl = dests
+        if du is not None:
+            H[np.ix_(du, du)] += P.T @ (P * huu[:, None])
+        if dl is not None:
+            H[np.ix_(dl, dl)] += P.T @ (P * hll[:, None])
+        if du is not None and dl is not None:
+            self.C[np.ix_(du, dl)] += P.T @ (P * hul[:, None])  # rows: cut k, columns: cut k-1
+
+    def _scale_blocks(self, dests, huu, hll, hul, gu, gl, vu, vl, P, Z):
+        H, z = self.H, self.zeta
+        zi = np.arange(z.start, z.stop)
+        for dest, c in zip(dests, (huu * vu + hul * vl + gu, hll * vl + hul * vu + gl)):
+            if dest is not None:
+                self.C[np.ix_(dest, zi)] -= P.T @ (Z * c[:, None])
+        czz = huu * vu * vu + hll * vl * vl + 2.0 * hul * vu * vl + gu * vu + gl * vl
+        H[z, z] += Z.T @ (Z * czz[:, None])
 
 
 def _weighted_gram(Xs, c):

@@ -32,8 +32,8 @@ from scipy import stats
 
 from .effects import probabilities_at
 from .exceptions import CrossingError
-from .extended import ModelLayout, all_training_rows, layout_of
-from .extfit import fit_layout
+from .extended_fit import fit_layout
+from .layout import ModelLayout, all_training_rows, layout_of
 
 __all__ = ["proportional_odds_test", "brant_test"]
 

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .links import _log1mexp, get_link
+from .links import log1mexp, get_link
 
 __all__ = ["interval_probability", "interval_logprob", "category_probabilities"]
 
@@ -56,7 +56,7 @@ def interval_logprob(link, lower, upper):
         a = np.where(upper_side, link.logsf(lower), link.logcdf(upper))
         b = np.where(upper_side, link.logsf(upper), link.logcdf(lower))
         diff = np.minimum(b - a, 0.0)
-        out = a + _log1mexp(np.where(np.isfinite(diff), diff, -np.inf))
+        out = a + log1mexp(np.where(np.isfinite(diff), diff, -np.inf))
     return np.where(np.isneginf(b), a, out)
 
 

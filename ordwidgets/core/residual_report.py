@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .diagnostics import Axis, SortedDraws, _ks_from_sorted, _qq_from_sorted, display_rows, moment_table
+from .diagnostics import Axis, SortedDraws, ks_from_sorted, qq_from_sorted, display_rows, moment_table
 from .residuals import ReferenceDistribution, draw_surrogate
 
 __all__ = ["ResidualDiagnostics", "residual_diagnostics"]
@@ -127,7 +127,7 @@ def residual_diagnostics(res, *, x=None, thresholds=None, draws=1, seed=None, bi
     return ResidualDiagnostics(
         kind=sur.kind, description=sur.description, reference=sur.reference, residuals=sur.residuals,
         fitted=fitted, x_name=x_name, x=x_values,
-        qq=_qq_from_sorted(ordered, sur.reference, quantiles),
+        qq=qq_from_sorted(ordered, sur.reference, quantiles),
         versus_fitted=axes["fitted"].means(sur.residuals, level=level),
         versus_x=None if x_values is None else axes[x_name].means(sur.residuals, level=level),
         tests=_test_table(sur, ordered, axes, alpha),
@@ -165,8 +165,7 @@ def _resolve_x(res, x):
 
 def _design_columns(res) -> list:
     """Names of the columns of ``res.training.X`` (the layout's columns for extended fits)."""
-    layout = getattr(res, "layout", None)
-    return list(res.coef_names if layout is None else layout.columns)
+    return list(res.layout.columns)
 
 
 # Prepared axes per fit: variables do not change when thresholds are edited, so their bins
@@ -191,7 +190,7 @@ def _axes(res, fitted, x_name, x_values, bins):
 
 def _test_table(sur, ordered, axes, alpha):
     v = sur.reference.cdf(sur.residuals[:, 0]) - 0.5
-    rows = [("distance", "link distribution", "Kolmogorov-Smirnov", *_ks_from_sorted(ordered, sur.reference))]
+    rows = [("distance", "link distribution", "Kolmogorov-Smirnov", *ks_from_sorted(ordered, sur.reference))]
     for name, axis in axes.items():
         rows.append(("trend", name, "F-test on x and x^2", *axis.f_test(v)))
         rows.append(("spread", name, "F-test of |residual| on x and x^2", *axis.f_test(np.abs(v))))

@@ -8,10 +8,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .effects import prediction_intervals, probabilities_at
-from .extended import effect_groups, error_bounds_of, location_predictor, model_facts
+from .effects import check_level, prediction_intervals, probabilities_at
+from .layout import effect_groups, error_bounds_of, location_predictor, model_facts
 from .links import Link
-from .probabilities import category_probabilities, interval_logprob
+from .probabilities import interval_logprob
 
 __all__ = ["FitResult", "TrainingData", "SIGN_CONVENTION"]
 
@@ -82,8 +82,8 @@ class FitResult:
     notes: tuple = ()
     training: TrainingData | None = field(default=None, repr=False)
     options: dict = field(default_factory=dict)
-    #: Column layout (:class:`~ordwidgets.core.extended.ModelLayout`) of a fit with
-    #: per-threshold or scale effects; ``None`` for a parallel fit.
+    #: Column layout (:class:`~ordwidgets.core.layout.ModelLayout`): which design columns
+    #: are parallel, per-threshold or scale effects (a plain fit: all parallel, no scale).
     layout: object = field(default=None, repr=False)
 
     # ---- parameters ------------------------------------------------------------------------
@@ -141,7 +141,7 @@ class FitResult:
         Columns ``estimate``, ``std_error``, ``z``, ``p_value``, ``wald_low``, ``wald_high``
         (the Wald interval ``estimate -+ z_{(1+level)/2} * std_error`` of coverage ``level``).
         """
-        _check_level(level)
+        check_level(level)
         est = pd.Series(self.params, index=self.names)
         se = self.std_errors
         z = est / se
@@ -156,7 +156,7 @@ class FitResult:
         """Design matrix (no intercept) for ``data`` (default: the training rows)."""
         if data is None:
             return self._training().X
-        cols = self.coef_names if self.layout is None else self.layout.columns
+        cols = self.layout.columns
         if self.model_spec is None or not cols:
             return np.empty((len(data), 0))
         mm = self.model_spec.get_model_matrix(data, na_action="ignore")
@@ -167,9 +167,7 @@ class FitResult:
         return self._eta(self.design(data))
 
     def _eta(self, X):
-        if self.layout is not None:
-            return location_predictor(self.layout, self.params, X)
-        return X @ self.params[self.n_thresholds :] if X.shape[1] else np.zeros(len(X))
+        return location_predictor(self.layout, self.params, X)
 
     def predict(self, data=None, kind="probabilities", *, level=None) -> pd.DataFrame | pd.Series:
         """Predictions for ``data`` (default: the training rows).
@@ -193,10 +191,7 @@ class FitResult:
         index = self._index(data, len(eta))
         if kind == "latent":
             return pd.Series(eta, index=index, name="latent")
-        if self.layout is None:
-            probs = category_probabilities(self.link, self.params[: self.n_thresholds], eta)
-        else:
-            probs = probabilities_at(self, X)
+        probs = probabilities_at(self, X)
         cols = [str(v) for v in self.levels]
         if kind == "probabilities":
             return pd.DataFrame(probs, index=index, columns=cols)
@@ -224,14 +219,7 @@ class FitResult:
         -------
         lower, upper : ndarray, shape (n_rows,)
         """
-        if self.layout is not None:
-            return error_bounds_of(self, thresholds, coefficients)
-        tr = self._training()
-        theta = self.params[: self.n_thresholds] if thresholds is None else np.asarray(thresholds, float)
-        beta = self.params[self.n_thresholds :] if coefficients is None else np.asarray(coefficients, float)
-        eta = tr.X @ beta if tr.X.shape[1] else np.zeros(len(tr.y))
-        cuts = np.concatenate([[-np.inf], theta, [np.inf]])
-        return cuts[tr.y] - eta, cuts[tr.y + 1] - eta
+        return error_bounds_of(self, thresholds, coefficients)
 
     def loglik_at(self, thresholds=None, coefficients=None) -> float:
         """Log-likelihood of the training rows at other parameter values (cheap, no refit).
@@ -377,11 +365,6 @@ class FitResult:
 
     def _repr_html_(self) -> str:
         return render_html(self)
-
-
-def _check_level(level):
-    if not (isinstance(level, (int, float)) and 0 < level < 1):
-        raise ValueError(f"level must be strictly between 0 and 1, got {level!r}")
 
 
 def _fmt(v) -> str:

@@ -81,7 +81,7 @@ class ThresholdPanel(PanelBase):
         colours = category_colours(len(self.state.fit.levels))
         self.regions.colors, self.regions.fill_colors = colours, colours
         self.regions.fill_opacities = [0.5] * len(colours)
-        extended = getattr(self.state.fit, "layout", None) is not None
+        extended = not self.state.fit.layout.is_parallel
         self.note.value = ("<i>non-parallel or scale effects: the rules are the cut points at this scenario; "
                            "the sliders move the base thresholds</i>" if extended else "")
         self.legend.value = level_legend(self.state.fit.levels, colours)
@@ -131,7 +131,7 @@ class ThresholdPanel(PanelBase):
         scale effects they are ``eta + sigma * U_j`` (the effective cut points of this case).
         """
         eta, U, sigma = self.state.cuts_of(self.state.scenario_frame())
-        if getattr(self.state.fit, "layout", None) is None:
+        if self.state.fit.layout.is_parallel:
             return float(eta[0]), 1.0, self.state.theta
         return float(eta[0]), float(sigma[0]), eta[0] + sigma[0] * U[0]
 

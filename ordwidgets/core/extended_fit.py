@@ -1,10 +1,11 @@
-"""Fitting the extended model: non-parallel (per-threshold) and scale effects.
+"""Preparing the extended model: non-parallel (per-threshold) and scale effects.
 
-``fit(..., nonparallel=[...], scale_by=[...])`` lands here.  As for the parallel model the
-design is standardised internally (location columns centred and scaled, scale columns only
-scaled, which keeps the map back to the user's scale linear), the safeguarded Newton
-iteration of :mod:`ordwidgets.core.optimize` runs on the analytic gradient and Hessian of
-:class:`~ordwidgets.core.extended.ExtendedDesign`, and the answer is mapped back.
+``fit(..., nonparallel=[...], scale_by=[...])`` prepares its problem here: predictor names
+are resolved to design columns, the :class:`~ordwidgets.core.layout.ModelLayout` is built
+and the rows are handed to the engine as a design (standardised internally: location
+columns centred and scaled, scale columns only scaled, which keeps the map back to the
+user's scale linear).  :func:`fit_layout` refits any layout on given rows (the
+proportional-odds tests use it).
 
 Per-threshold effects must keep the cuts ``theta_j - w'gamma_j`` increasing for every
 observed row; when the likelihood is maximised on that boundary (some observed rows would
@@ -16,34 +17,17 @@ observed rows, inside the box spanned by the non-parallel columns, is reported w
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
 
 import numpy as np
 
-from .design import check_collinear, prepare, split_formula, threshold_labels
+from .design import check_collinear_moments, prepare, split_formula, threshold_labels
+from .engine import PreparedFit, check_enough_rows, maximise, separated_columns, user_scale_matrix
 from .exceptions import CrossingError, CrossingWarning, OrdinalDataError
-from .extended import ExtendedDesign, ModelLayout
-from .fitting import _covariance, _second_start, _separation_check, closed_form_thresholds, standardise
-from .links import get_link
-from .optimize import ascent_direction, check_convergence, newton_maximize
-from .results import FitResult, TrainingData
+from .layout import ModelLayout
+from .objective import SortedDesign, sort_by_category, sorted_standardised
+from .optimize import ascent_direction
 
-__all__ = ["fit_extended", "fit_layout", "LayoutFit", "resolve_predictors"]
-
-
-@dataclass(frozen=True, eq=False)
-class LayoutFit:
-    """Raw outcome of :func:`fit_layout` on the user's scale."""
-
-    params: np.ndarray
-    cov: np.ndarray
-    loglik: float
-    converged: bool
-    message: str
-    curvature_condition: float
-    largest_score: float
-    iterations: int
-    n_obs: float
+__all__ = ["extended_problem", "fit_layout", "layout_design", "resolve_predictors", "crossing_in_range"]
 
 
 def _as_list(names, what):
@@ -135,24 +119,6 @@ def _names(prep, idx):
     return ", ".join(prep.columns[i] for i in idx)
 
 
-def _to_user_scale(layout, mean, sd):
-    """``A`` with ``params_user = A @ params_internal`` (location centred+scaled, scale scaled)."""
-    m = layout.m
-    A = np.eye(layout.n_params)
-    tb, bb, gb, zb = layout.blocks()
-    for k, i in enumerate(layout.location):
-        A[bb.start + k, bb.start + k] = 1.0 / sd[i]
-        A[:m, bb.start + k] = mean[i] / sd[i]
-    for q, i in enumerate(layout.nonparallel):
-        for j in range(m):
-            c = gb.start + q * m + j
-            A[c, c] = 1.0 / sd[i]
-            A[j, c] = mean[i] / sd[i]
-    for k, i in enumerate(layout.scale):
-        A[zb.start + k, zb.start + k] = 1.0 / sd[i]
-    return A
-
-
 def _crossing_failure(design, outcome, layout):
     """Whether a failed fit stopped on the boundary where observed cuts meet."""
     if not layout.nonparallel or not np.all(np.isfinite(outcome.grad)):
@@ -185,49 +151,58 @@ def _raise_crossing(layout, design, params):
     )
 
 
-def _interpret(design, outcome, layout, what, converged, message):
-    """Separation first (estimates running away), then crossing, then other failures."""
-    names = layout.param_names()[layout.m:]
-    if np.all(np.isfinite(outcome.hess)):
-        separated, sep_message = _separation_check(outcome.params, outcome.hess, layout.m, names, message)
-        if not separated:
-            return False, sep_message
-    if converged:
-        return True, message
-    if _crossing_failure(design, outcome, layout):
-        _raise_crossing(layout, design, outcome.params)
-    check_convergence(outcome, what=what)
-    return False, message
+def layout_design(layout, D, y, weights, *, columns=None):
+    """The engine's design for ``layout`` on rows ``D`` (user scale) and its map back.
+
+    Rows are sorted by category once; location columns (parallel and per-threshold) are
+    centred and scaled, scale columns only scaled.
+
+    Parameters
+    ----------
+    columns : SortedColumns, optional
+        ``sorted_standardised(D, ...)`` when the caller already has it.
+
+    Returns
+    -------
+    design : SortedDesign
+    to_user : ndarray
+    """
+    order, bounds = sort_by_category(y, layout.m + 1)
+    w = None if weights is None else np.asarray(weights, float)[order]
+    cols = sorted_standardised(D, order, bounds, w) if columns is None else columns
+    Xs = cols.X
+    X, W, Z = layout.arrays(Xs)
+    if layout.scale:
+        Z = Z + (cols.mean / cols.sd)[list(layout.scale)]
+    design = SortedDesign(np.asfortranarray(X), bounds, w, W=W, Z=Z)
+    return design, user_scale_matrix(layout, cols.mean, cols.sd)
 
 
-def fit_layout(layout, D, y, weights, link, *, max_iter=100, tol=1e-10, callback=None, what="fit",
-               warn=True):
+def _explainer(layout, design):
+    """``explain_failure`` for the engine: a fit stopped where observed cuts meet."""
+
+    def explain(outcome):
+        if _crossing_failure(design, outcome, layout):
+            _raise_crossing(layout, design, outcome.params)
+
+    return explain
+
+
+def fit_layout(layout, D, y, weights, link, *, max_iter=100, tol=1e-10, callback=None, what="fit", warn=True):
     """Maximise the likelihood of one layout on a full design ``D`` (user-scale answer).
+
+    Returns
+    -------
+    EngineFit
 
     Raises
     ------
     CrossingError
         If the maximum needs crossing cumulative probabilities for observed rows.
     """
-    lk = get_link(link)
-    mean, sd = standardise(D, weights)
-    design = ExtendedDesign(layout, (D - mean) / sd, y, weights, scale_design=D / sd)
-    start = np.concatenate([closed_form_thresholds(lk, design.counts()), np.zeros(layout.n_params - layout.m)])
-    evaluate = lambda x, o: design.sums(lk, x, order=o)  # noqa: E731
-    outcome = newton_maximize(evaluate, start, feasible=design.feasible, max_iter=max_iter, tol=tol,
-                              callback=callback)
-    if lk.name == "cauchit" and layout.n_params > layout.m:
-        outcome = _second_start(outcome, design, evaluate, design.feasible, layout.m, max_iter, tol)
-    converged, message, condition = check_convergence(outcome, what=what, warn=False)
-    if warn:
-        converged, message = _interpret(design, outcome, layout, what, converged, message)
-    elif not converged and _crossing_failure(design, outcome, layout):
-        _raise_crossing(layout, design, outcome.params)
-    A = _to_user_scale(layout, mean, sd)
-    grad_user = np.linalg.solve(A.T, outcome.grad)
-    return LayoutFit(A @ outcome.params, _covariance(outcome.hess, A), float(outcome.loglik), converged,
-                     message, condition, float(np.max(np.abs(grad_user), initial=0.0)), outcome.iterations,
-                     float(design.counts().sum()))
+    design, to_user = layout_design(layout, D, y, weights)
+    return maximise(design, link, to_user=to_user, names=layout.param_names(), max_iter=max_iter, tol=tol,
+                    callback=callback, what=what, warn=warn, explain_failure=_explainer(layout, design))
 
 
 def crossing_in_range(layout, params, D):
@@ -247,38 +222,40 @@ def crossing_in_range(layout, params, D):
     return [f"{t[j]} / {t[j + 1]}" for j in np.flatnonzero(worst < 0)]
 
 
-def fit_extended(formula, data, *, link="logit", weights=None, levels=None, max_iter=100, tol=1e-10,
-                 keep_data=True, callback=None, nonparallel=None, scale_by=None):
-    """Fit with per-threshold effects and/or scale effects (see :func:`ordwidgets.core.fit`)."""
-    lk = get_link(link)
+def extended_problem(formula, data, *, weights=None, levels=None, nonparallel=None, scale_by=None):
+    """Prepare a fit with per-threshold and/or scale effects (see :func:`ordwidgets.core.fit`)."""
     nonparallel, scale_by = _as_list(nonparallel, "nonparallel"), _as_list(scale_by, "scale_by")
     prep, scale_only = _prepare_with_scale(formula, data, weights, levels, scale_by)
     layout = _build_layout(prep, nonparallel, scale_by, scale_only)
-    used = prep.y.shape[0] if prep.weights is None else int(np.count_nonzero(prep.weights))
-    if used < layout.n_params:
-        raise OrdinalDataError(f"{used} rows for {layout.n_params} parameters: fewer rows than parameters")
+    check_enough_rows(prep.y.shape[0] if prep.weights is None else int(np.count_nonzero(prep.weights)),
+                      layout.n_params)
     loc = sorted(layout.location + layout.nonparallel)
-    check_collinear(prep.X[:, loc], [prep.columns[i] for i in loc], prep.weights)
-    check_collinear(prep.X[:, list(layout.scale)], [scale_name_of(prep, i) for i in layout.scale], prep.weights)
-    out = fit_layout(layout, prep.X, prep.y, prep.weights, lk, max_iter=max_iter, tol=tol,
-                     callback=callback, what=formula)
-    crossing = crossing_in_range(layout, out.params, prep.X)
-    if crossing:
-        warnings.warn(
-            f"fitted cumulative probabilities cross inside the range of "
-            f"{_names(prep, layout.nonparallel)} (between thresholds {'; '.join(crossing)}); "
-            "predictions there are not valid probabilities", CrossingWarning, stacklevel=3)
-    return FitResult(
-        link=lk, levels=prep.levels, threshold_names=layout.thresholds,
-        coef_names=tuple(layout.param_names()[layout.m:]), params=out.params, cov=out.cov,
-        loglik=out.loglik, n_obs=out.n_obs, n_rows=int(len(prep.y)), iterations=out.iterations,
-        converged=out.converged, message=out.message, largest_score=out.largest_score, curvature_condition=out.curvature_condition,
-        formula=formula, response=prep.response, model_spec=prep.model_spec, notes=tuple(prep.notes),
-        training=TrainingData(prep.X, prep.y, prep.weights, prep.index, frame=prep.frame) if keep_data else None,
-        options={"weights": weights, "levels": levels, "nonparallel": nonparallel, "scale_by": scale_by,
-                 "crossing": crossing},
-        layout=layout,
-    )
+    order, bounds = sort_by_category(prep.y, len(prep.levels))
+    cols = sorted_standardised(prep.X, order, bounds, None if prep.weights is None else prep.weights[order])
+    _check_collinear_parts(prep, layout, cols, loc)
+    design, to_user = layout_design(layout, prep.X, prep.y, prep.weights, columns=cols)
+    separated = separated_columns(cols.low[:, loc], cols.high[:, loc], [prep.columns[i] for i in loc])
+
+    def after(fitted):
+        crossing = crossing_in_range(layout, fitted.params, prep.X)
+        if crossing:
+            warnings.warn(
+                f"fitted cumulative probabilities cross inside the range of "
+                f"{_names(prep, layout.nonparallel)} (between thresholds {'; '.join(crossing)}); "
+                "predictions there are not valid probabilities", CrossingWarning, stacklevel=4)
+        return {"crossing": crossing}
+
+    return PreparedFit(design=design, layout=layout, to_user=to_user, prep=prep, separated=tuple(separated),
+                       options={"weights": weights, "levels": levels, "nonparallel": nonparallel,
+                                "scale_by": scale_by},
+                       explain_failure=_explainer(layout, design), after=after)
+
+
+def _check_collinear_parts(prep, layout, cols, loc):
+    """Location columns, and scale columns, must each be free of collinearity."""
+    check_collinear_moments([prep.columns[i] for i in loc], cols.mean[loc], cols.cov[np.ix_(loc, loc)])
+    sc = list(layout.scale)
+    check_collinear_moments([scale_name_of(prep, i) for i in sc], cols.mean[sc], cols.cov[np.ix_(sc, sc)])
 
 
 def scale_name_of(prep, i):

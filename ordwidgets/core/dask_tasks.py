@@ -23,9 +23,9 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .design import _check_mixed, _weights_array, unusable_rows
+from .design import check_mixed_types, weights_array, unusable_rows
 from .exceptions import OrdinalDataError
-from .objective import SortedDesign, sort_by_category
+from .objective import SortedDesign, category_ranges, sort_by_category
 
 __all__ = ["PartitionPlan", "scan_partition", "moment_partition", "sums_partition", "formula_input"]
 
@@ -76,7 +76,7 @@ class PartitionPlan:
 
 def _usable(part, plan):
     """Rows usable for the fit, their weights and the tally of the rows dropped."""
-    w = _weights_array(plan.weights, part)
+    w = weights_array(plan.weights, part)
     keep, tally = unusable_rows(part, plan.response, list(plan.columns), w)
     weights = None if w is None else w[keep].to_numpy(float)
     return part.loc[keep], weights, tally
@@ -92,7 +92,7 @@ def scan_partition(part, plan):
         value), ``rows`` (usable rows), ``nonzero`` (those with positive weight), ``categories`` (values of each
         categorical predictor) and ``head`` (a few usable rows, to learn the model spec).
     """
-    _check_mixed(part, list(plan.columns))
+    check_mixed_types(part, list(plan.columns))
     rows, w, tally = _usable(part, plan)
     values = rows[plan.response]
     if w is None:
@@ -159,7 +159,8 @@ def moment_partition(part, number, plan, cutoff, seed):
     -------
     dict
         ``weight`` (sum of weights), ``mean`` and ``m2`` (centred weighted cross-products),
-        and ``sample`` (candidate rows with their keys).
+        ``sample`` (candidate rows with their keys) and ``low`` / ``high`` (per-category column
+        ranges, for the separation check).
     """
     X, y, w, rows = design_arrays(part, plan)
     wt = np.ones(len(y)) if w is None else w
@@ -170,7 +171,10 @@ def moment_partition(part, number, plan, cutoff, seed):
     pick = np.flatnonzero(keys < cutoff)
     sample = {"key": keys[pick], "X": X[pick], "y": y[pick], "w": None if w is None else w[pick],
               "frame": rows.iloc[pick]}
-    return {"weight": total, "mean": mean, "m2": Xc.T @ (Xc * wt[:, None]), "sample": sample}
+    order, bounds = sort_by_category(y, plan.n_levels)
+    low, high = category_ranges(X[order], bounds, None if w is None else w[order])
+    return {"weight": total, "mean": mean, "m2": Xc.T @ (Xc * wt[:, None]), "sample": sample,
+            "low": low, "high": high}
 
 
 def prepared_partition(part, plan):

@@ -1,4 +1,7 @@
-"""Layout and objective of the extended cumulative link model.
+"""Model layout: which design columns enter where, and the cuts it implies.
+
+Every fit carries a :class:`ModelLayout`; a plain (proportional-odds) fit has every column
+as a parallel effect and no scale effect.
 
 The extended model lets some predictors have a separate effect at each threshold (partial
 proportional odds; Peterson & Harrell 1990, Appl. Statist. 39:205-217) and lets others
@@ -31,8 +34,8 @@ import numpy as np
 from .links import get_link
 from .objective import row_terms
 
-__all__ = ["ModelLayout", "ExtendedDesign", "layout_of", "scale_name", "per_threshold_name", "effect_groups",
-           "all_training_rows"]
+__all__ = ["ModelLayout", "ExtendedDesign", "layout_of", "parallel_layout", "scale_name", "per_threshold_name",
+           "effect_groups", "all_training_rows"]
 
 
 def per_threshold_name(column, threshold):
@@ -102,7 +105,8 @@ class ModelLayout:
     def arrays(self, D):
         """Location, non-parallel and scale parts ``(X, W, Z)`` of a full design ``D``."""
         D = np.asarray(D, float).reshape(len(D), len(self.columns))
-        return D[:, list(self.location)], D[:, list(self.nonparallel)], D[:, list(self.scale)]
+        X = D if self.location == tuple(range(len(self.columns))) else D[:, list(self.location)]
+        return X, D[:, list(self.nonparallel)], D[:, list(self.scale)]
 
     def with_nonparallel(self, extra):
         """The same layout with design columns ``extra`` (indices) moved to per-threshold."""
@@ -112,13 +116,15 @@ class ModelLayout:
         return ModelLayout(self.columns, loc, nonpar, self.scale, self.thresholds)
 
 
+def parallel_layout(columns, thresholds) -> ModelLayout:
+    """The layout of a plain fit: every column a parallel effect, no scale effect."""
+    columns = tuple(columns)
+    return ModelLayout(columns, tuple(range(len(columns))), (), (), tuple(thresholds))
+
+
 def layout_of(res) -> ModelLayout:
-    """The layout of any fit (a parallel fit has every column as a parallel effect)."""
-    layout = getattr(res, "layout", None)
-    if layout is not None:
-        return layout
-    p = len(res.coef_names)
-    return ModelLayout(tuple(res.coef_names), tuple(range(p)), (), (), tuple(res.threshold_names))
+    """The layout of a fit (every fit carries one)."""
+    return res.layout
 
 
 def unscaled_cuts(layout, params, W):
@@ -324,8 +330,8 @@ def effect_groups(res):
 
 def model_facts(res) -> dict:
     """Display facts of a fit with per-threshold or scale effects (empty for a parallel fit)."""
-    layout = getattr(res, "layout", None)
-    if layout is None:
+    layout = res.layout
+    if layout.is_parallel:
         return {}
     cols = layout.columns
     facts = {"per-threshold effects": ", ".join(cols[i] for i in layout.nonparallel) or "none",
