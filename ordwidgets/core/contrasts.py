@@ -20,8 +20,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .effects import _check_level, logit_interval, probability_jacobian
-from .extended import all_training_rows, layout_of
+from .effects import check_level, logit_interval, probability_jacobian
+from .layout import all_training_rows, layout_of
 from .terms import term_columns
 
 __all__ = ["Contrasts", "contrasts", "holm_adjust", "probability_difference"]
@@ -165,7 +165,7 @@ def contrasts(res, term, *, level=0.95) -> Contrasts:
         If ``term`` is not a factor of the fit, or its effects are not parallel (per-threshold
         or scale effects have no single latent difference; compare probabilities instead).
     """
-    _check_level(level)
+    check_level(level)
     term, cols = _find_term(res, term)
     var, frame = _variable(res, term)
     levels = _factor_levels(frame[var])
@@ -207,7 +207,7 @@ def probability_difference(res, scenario, baseline, *, level=0.95) -> pd.DataFra
         delta-method ``SE = sqrt(g' V g)``, ``g`` the gradient of the difference (common
         practice, no source).  At the fitted thresholds.
     """
-    _check_level(level)
+    check_level(level)
     (pb, gb), (ps, gs) = (probability_jacobian(res, res.design(f)) for f in (baseline, scenario))
     scores = np.arange(1, len(res.levels) + 1, dtype=float)
     est_b = np.append(pb[0], scores @ pb[0])

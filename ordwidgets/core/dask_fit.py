@@ -1,7 +1,7 @@
 """Preparing a fit of a Dask DataFrame: the same model and design protocol, sums reduced over partitions.
 
 The likelihood, its gradient and its Hessian are sums over rows, so every Newton evaluation
-is one task per partition (:func:`~ordwidgets.core.dask_partitions.sums_partition`) whose
+is one task per partition (:func:`~ordwidgets.core.dask_tasks.sums_partition`) whose
 few numbers are added up; rows never leave their partition.  Before the iteration one pass
 learns the response levels, the levels of the categorical predictors and the missing-value
 counts, and a second pass the column moments (collinearity check, internal

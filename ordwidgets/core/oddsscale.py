@@ -11,8 +11,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .effects import _check_level
-from .extended import effect_groups
+from .effects import check_level
+from .layout import effect_groups
 
 __all__ = ["odds_scale", "exp_beta_meaning", "EXP_BETA_MEANING"]
 
@@ -53,7 +53,7 @@ def odds_scale(res, *, level=0.95) -> pd.DataFrame:
     pandas.DataFrame
         Indexed by effect; columns ``odds_ratio``, ``wald_low``, ``wald_high``.
     """
-    _check_level(level)
+    check_level(level)
     if res.link.name != "logit":
         raise ValueError(exp_beta_meaning(res.link.name))
     scale = set(effect_groups(res)["scale"])

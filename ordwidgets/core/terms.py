@@ -14,7 +14,7 @@ def term_columns(res) -> dict[str, list[str]]:
 
     For a parallel fit the design columns are the coefficient names.  With per-threshold or
     scale effects the parameters of a column are named from it (``"dose @ poor->fair"``,
-    ``"scale: dose"``; see :mod:`ordwidgets.core.extended`).
+    ``"scale: dose"``; see :mod:`ordwidgets.core.layout`).
 
     Parameters
     ----------
@@ -27,7 +27,7 @@ def term_columns(res) -> dict[str, list[str]]:
         column in the fit (the intercept) are left out.  Without a formula spec (a fit made
         from arrays) every column is its own term.
     """
-    from .extended import layout_of
+    from .layout import layout_of
 
     fitted = list(layout_of(res).columns)
     spec = getattr(res, "model_spec", None)

@@ -20,8 +20,8 @@ import pandas as pd
 from scipy import stats
 
 from .exceptions import CrossingError
-from .extended import ModelLayout, all_training_rows, layout_of, per_threshold_name, scale_name
-from .extfit import fit_layout
+from .layout import ModelLayout, all_training_rows, layout_of, per_threshold_name, scale_name
+from .extended_fit import fit_layout
 from .terms import term_columns
 
 __all__ = ["term_parameters", "term_tests"]
