@@ -28,7 +28,7 @@ from .probabilities import interval_logprob
 __all__ = ["row_terms", "SortedDesign", "sort_by_category", "sorted_standardised", "SortedColumns",
            "category_ranges"]
 
-DEFAULT_CHUNK = 65_536
+DEFAULT_CHUNK = 131_072
 
 
 def row_terms(link, upper=None, lower=None, *, hessian=True):
@@ -379,10 +379,13 @@ class _Accumulator:
 
     With ``u = (theta_k - x'beta - w'gamma_k) / sigma`` (upper end) and ``l`` the same at
     ``k - 1``: ``du/dtheta_k = 1/sigma``, ``du/dbeta = -x/sigma``, ``du/dgamma_k = -w/sigma``,
-    ``du/dzeta = -u z`` and ``d2u/(dpsi dzeta') = -(du/dpsi) z'``.  The effect block is one
-    weighted Gram product of ``X``; everything else is ``X'`` times a few columns or a small
-    product of the threshold / per-threshold / scale columns.  Blocks between two different
-    groups of parameters are added once to ``C``; the Hessian is ``H + C + C'``.
+    ``du/dzeta = -u z`` and ``d2u/(dpsi dzeta') = -(du/dpsi) z'``.  Per segment the effect
+    block is one weighted Gram product of ``X``, the blocks between effects and the other
+    parameters one product of ``X'`` with a few columns, and all blocks among thresholds,
+    per-threshold and scale parameters one product of the small matrix ``[1, W, Z]'`` with
+    a few columns (few BLAS calls: on a busy machine each call may wait for a thread).
+    Blocks between two different groups of parameters are added once to ``C``; the
+    Hessian is ``H + C + C'``.
     """
 
     def __init__(self, design, g, H):
@@ -392,80 +395,121 @@ class _Accumulator:
         self.m, self.p, self.q, self.r = m, design.X.shape[1], design.W.shape[1], design.Z.shape[1]
         self.beta = slice(m, m + self.p)
         self.zeta = slice(m + self.p + self.q * m, m + self.p + self.q * m + self.r)
+        self.sign = np.array([1.0] + [-1.0] * self.q)  # du/d(theta, gamma) = sign * [1, w] / sigma
 
     def _dest(self, j):
-        """Parameter indices of the threshold-like columns ``[1, -w]`` at cut ``j``."""
+        """Parameter indices of the threshold-like columns ``[1, w]`` at cut ``j``."""
         base = self.m + self.p
         return np.array([j] + [base + c * self.m + j for c in range(self.q)])
 
     def add(self, k, m, X, W, Z, w, inv, ends, t):
         n = len(X)
         wt = 1.0 if w is None else w
-        present = [e is not None for e in ends]
-        gu, gl = (_nz(t["gu"], n) * wt, _nz(t["gl"], n) * wt)
-        vu, vl = (np.zeros(n) if e is None else e for e in ends)
-        P = np.column_stack([np.ones(n), -W]) if self.q else np.ones((n, 1))
-        if inv is not None:
-            P = P * inv[:, None]
-        one = 1.0 if inv is None else inv
-        dests = [self._dest(k) if present[0] else None, self._dest(k - 1) if present[1] else None]
-        g = self.g
-        for dest, ge in zip(dests, (gu, gl)):
-            if dest is not None:
-                g[dest] += P.T @ ge
+        gu, gl = _nz(t["gu"], n) * wt, _nz(t["gl"], n) * wt
+        dests = [self._dest(k) if ends[0] is not None else None, self._dest(k - 1) if ends[1] is not None else None]
+        if self.q == 0 and self.r == 0:
+            self._add_plain(k, X, wt, gu, gl, t, dests)
+        else:
+            self._add_extended(X, W, Z, wt, gu, gl, t, inv, ends, dests)
+
+    def _add_plain(self, k, X, wt, gu, gl, t, dests):
+        """Parallel model: the threshold parts are plain sums."""
+        n = len(X)
+        g, b = self.g, self.beta
+        if dests[0] is not None:
+            g[k] += gu.sum()
+        if dests[1] is not None:
+            g[k - 1] += gl.sum()
         if self.H is None:
-            g[self.beta] -= X.T @ ((gu + gl) * one)
-            if self.r:
-                g[self.zeta] -= Z.T @ (gu * vu + gl * vl)
+            if self.p:
+                g[b] -= X.T @ (gu + gl)
             return
         huu, hll, hul = (_nz(t[key], n) * wt for key in ("huu", "hll", "hul"))
-        cols = [(gu + gl) * one]
-        for dest, c in zip(dests, (huu + hul, hll + hul)):
-            if dest is not None:
-                cols.extend((P * (c * one)[:, None]).T)
-        if self.r:
-            cz = huu * vu + hll * vl + hul * (vu + vl) + gu + gl
-            cols.extend((Z * (cz * one)[:, None]).T)
-        T = np.column_stack(cols) if len(cols) > 1 else cols[0][:, None]
-        G = X.T @ T if self.p else np.zeros((0, T.shape[1]))
-        self._place(G, dests, huu, hll, hul, gu, gl, vu, vl, P, Z, X, one)
-
-    def _place(self, G, dests, huu, hll, hul, gu, gl, vu, vl, P, Z, X, one):
-        g, H, C, b, z = self.g, self.H, self.C, self.beta, self.zeta
-        g[b] -= G[:, 0]
-        col = 1
-        width = P.shape[1]
-        for dest in dests:
-            if dest is not None:
-                C[dest[:, None], np.arange(b.start, b.stop)[None, :]] -= G[:, col:col + width].T
-                col += width
-        if self.r:
-            C[b, z] += G[:, col:col + self.r]
-            g[z] -= Z.T @ (gu * vu + gl * vl)
         if self.p:
-            H[b, b] += _weighted_gram(X, (huu + hll + 2.0 * hul) * one * one)
-        self._threshold_blocks(dests, huu, hll, hul, P)
-        if self.r:
-            self._scale_blocks(dests, huu, hll, hul, gu, gl, vu, vl, P, Z)
+            G = X.T @ np.column_stack([gu + gl, huu + hul, hll + hul])
+            g[b] -= G[:, 0]
+            H, C = self.H, self.C
+            if dests[0] is not None:
+                C[k, b] -= G[:, 1]
+            if dests[1] is not None:
+                C[k - 1, b] -= G[:, 2]
+            H[b, b] += _weighted_gram(X, huu + hll + 2.0 * hul)
+        if dests[0] is not None:
+            self.H[k, k] += huu.sum()
+        if dests[1] is not None:
+            self.H[k - 1, k - 1] += hll.sum()
+            if dests[0] is not None:
+                self.C[k, k - 1] += hul.sum()
 
-    def _threshold_blocks(self, dests, huu, hll, hul, P):
-        H = self.H
-        du, dl = dests
-        if du is not None:
-            H[np.ix_(du, du)] += P.T @ (P * huu[:, None])
-        if dl is not None:
-            H[np.ix_(dl, dl)] += P.T @ (P * hll[:, None])
-        if du is not None and dl is not None:
-            self.C[np.ix_(du, dl)] += P.T @ (P * hul[:, None])  # rows: cut k, columns: cut k-1
+    def _add_extended(self, X, W, Z, wt, gu, gl, t, inv, ends, dests):
+        n = len(X)
+        vu, vl = (np.zeros(n) if e is None else e for e in ends)
+        one = np.ones(n) if inv is None else inv
+        Q = np.column_stack([np.ones(n), W])
+        S = np.column_stack([Q, Z])
+        nq = Q.shape[1]
+        if self.H is None:
+            R = S.T @ np.column_stack([gu * one, gl * one, gu * vu + gl * vl])
+            self._gradient(R, dests, nq)
+            if self.p:
+                self.g[self.beta] -= X.T @ ((gu + gl) * one)
+            return
+        huu, hll, hul = (_nz(t[key], n) * wt for key in ("huu", "hll", "hul"))
+        one2 = one * one
+        cz = huu * vu + hll * vl + hul * (vu + vl) + gu + gl
+        small = [gu * one, gl * one, gu * vu + gl * vl,
+                 Q * (huu * one2)[:, None], Q * (hll * one2)[:, None], Q * (hul * one2)[:, None],
+                 Z * ((huu * vu + hul * vl + gu) * one)[:, None], Z * ((hll * vl + hul * vu + gl) * one)[:, None],
+                 Z * (huu * vu * vu + hll * vl * vl + 2.0 * hul * vu * vl + gu * vu + gl * vl)[:, None]]
+        R = S.T @ np.column_stack(small)
+        self._gradient(R, dests, nq)
+        self._small_blocks(R, dests, nq)
+        if self.p:
+            G = X.T @ np.column_stack([(gu + gl) * one, Q * ((huu + hul) * one2)[:, None],
+                                       Q * ((hll + hul) * one2)[:, None], Z * (cz * one)[:, None]])
+            self._effect_blocks(G, dests, nq)
+            self.H[self.beta, self.beta] += _weighted_gram(X, (huu + hll + 2.0 * hul) * one2)
 
-    def _scale_blocks(self, dests, huu, hll, hul, gu, gl, vu, vl, P, Z):
-        H, z = self.H, self.zeta
-        zi = np.arange(z.start, z.stop)
-        for dest, c in zip(dests, (huu * vu + hul * vl + gu, hll * vl + hul * vu + gl)):
+    def _gradient(self, R, dests, nq):
+        g, z = self.g, self.zeta
+        for col, dest in enumerate(dests):
             if dest is not None:
-                self.C[np.ix_(dest, zi)] -= P.T @ (Z * c[:, None])
-        czz = huu * vu * vu + hll * vl * vl + 2.0 * hul * vu * vl + gu * vu + gl * vl
-        H[z, z] += Z.T @ (Z * czz[:, None])
+                g[dest] += self.sign * R[:nq, col]
+        if self.r:
+            g[z] -= R[nq:, 2]
+
+    def _small_blocks(self, R, dests, nq):
+        """Threshold / per-threshold / scale blocks from ``R = [1, W, Z]' T``."""
+        H, C, z, s = self.H, self.C, self.zeta, self.sign
+        du, dl = dests
+        ss = np.outer(s, s)
+        col = 3
+        quu, qll, qul = (R[:nq, col + i * nq: col + (i + 1) * nq] for i in range(3))
+        col += 3 * nq
+        r = self.r
+        if du is not None:
+            H[np.ix_(du, du)] += ss * quu
+        if dl is not None:
+            H[np.ix_(dl, dl)] += ss * qll
+        if du is not None and dl is not None:
+            C[np.ix_(du, dl)] += ss * qul  # rows: cut k, columns: cut k-1
+        if r:
+            zi = np.arange(z.start, z.stop)
+            for dest, block in zip(dests, (R[:nq, col:col + r], R[:nq, col + r:col + 2 * r])):
+                if dest is not None:
+                    C[np.ix_(dest, zi)] -= s[:, None] * block
+            H[z, z] += R[nq:, col + 2 * r:col + 3 * r]
+
+    def _effect_blocks(self, G, dests, nq):
+        """Blocks between the parallel effects and the other parameters from ``G = X' T``."""
+        g, C, b, z = self.g, self.C, self.beta, self.zeta
+        g[b] -= G[:, 0]
+        bi = np.arange(b.start, b.stop)
+        for i, dest in enumerate(dests):
+            if dest is not None:
+                C[dest[:, None], bi[None, :]] -= self.sign[:, None] * G[:, 1 + i * nq:1 + (i + 1) * nq].T
+        if self.r:
+            C[b, z] += G[:, 1 + 2 * nq:]
 
 
 def _weighted_gram(Xs, c):
