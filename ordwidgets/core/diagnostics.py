@@ -34,7 +34,7 @@ from scipy import special, stats
 _EXACT_KS_ROWS = 10_000
 
 __all__ = ["qq_points", "binned_means", "distance_test", "trend_test", "spread_test",
-           "display_rows", "moment_table", "Axis", "SortedDraws"]
+           "display_rows", "moment_table", "Axis", "SortedDraws", "level_test"]
 
 
 # ---- sorted draws: QQ and distance -----------------------------------------------------------
@@ -146,6 +146,27 @@ class Axis:
         return cls(None if keep.all() else keep, None if weights is None else w, codes, count[used], center,
                    used, terms, _dot("ij,kj->ik", terms * w, terms), float(w.sum()))
 
+    @classmethod
+    def of_levels(cls, codes, *, weights=None):
+        """The axis of a factor: one bin per level, F-tests on the level dummies.
+
+        ``codes`` are level numbers ``0..K-1`` (negative: missing).  The trend and spread
+        F-tests are then one-way analyses of variance across the levels (Fisher 1925), which
+        do not depend on the order or coding of the levels.
+        """
+        codes = np.asarray(codes)
+        w = np.ones(len(codes)) if weights is None else np.asarray(weights, float)
+        keep = (codes >= 0) & (w > 0)
+        codes, w = codes[keep].astype(np.intp), w[keep]
+        nbins = int(codes.max()) + 1 if len(codes) else 1
+        count = np.bincount(codes, w, nbins)
+        used = count > 0
+        present = np.flatnonzero(used)
+        dummies = (codes[None, :] == present[1:, None]).astype(float)
+        terms = dummies - (dummies @ w / w.sum())[:, None] if len(codes) else np.zeros((0, 0))
+        return cls(None if keep.all() else keep, None if weights is None else w, codes, count[used],
+                   present.astype(float), used, terms, _dot("ij,kj->ik", terms * w, terms), float(w.sum()))
+
     def means(self, residuals, *, level=0.95) -> pd.DataFrame:
         """Binned means of row-averaged residuals (see :func:`binned_means`)."""
         r = _columns(residuals)
@@ -222,6 +243,11 @@ def trend_test(x, v, *, weights=None):
         ``nan`` when ``x`` is constant.
     """
     return Axis.of(x, bins=1, weights=weights).f_test(v)
+
+
+def level_test(codes, v, *, weights=None):
+    """One-way analysis of variance of ``v`` across the levels ``codes`` (F statistic, p-value)."""
+    return Axis.of_levels(codes, weights=weights).f_test(v)
 
 
 def spread_test(x, v, *, weights=None):

@@ -35,16 +35,19 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .exceptions import OrdinalDataError
 from .links import get_link
 from .probabilities import interval_logprob, interval_probability
 
 __all__ = [
     "SurrogateDraws", "draw_surrogate", "surrogate_residuals", "probability_scale_residuals",
     "surrogate_kind", "sample_truncated", "ReferenceDistribution", "reference_distribution",
+    "unit_positions", "whole_counts", "MAX_UNITS",
 ]
 
 _TINY = 1e-290          # below this, a probability is handled in log space
 _NEWTON_STEPS = 60
+MAX_UNITS = 2_000_000   # residuals per counted unit: above this, a random sample of units
 _SYMMETRIC = ("logit", "probit", "cauchit")   # latent errors symmetric about zero
 
 
@@ -234,6 +237,11 @@ class SurrogateDraws:
     kind: str
     reference: ReferenceDistribution
     description: str
+    #: Fitted row of each residual (row ``units[k]`` for residual ``k``): ``arange(n_rows)``
+    #: for one residual per row, repeated rows for one residual per counted unit.
+    units: np.ndarray | None = None
+    #: One phrase saying what a residual stands for (``"rows"`` or ``"counted units"``).
+    counted: str = "rows"
 
     @property
     def draws(self) -> int:
@@ -245,7 +253,39 @@ def surrogate_kind(res) -> str:
     return "probability" if res.options.get("nonparallel") else "latent"
 
 
-def draw_surrogate(res, *, draws=1, seed=None, thresholds=None) -> SurrogateDraws:
+def whole_counts(weights) -> bool:
+    """Whether frequency weights are whole numbers (counts of identical units)."""
+    w = np.asarray(weights, float)
+    return bool(np.all(np.isfinite(w)) and np.all(w >= 0) and np.all(w == np.round(w)))
+
+
+def unit_positions(res, *, max_units=MAX_UNITS, seed=None):
+    """Fitted row of every counted unit of a weighted fit (``None`` when unweighted).
+
+    A row with whole-number weight ``w`` stands for ``w`` identical units, and the data
+    expanded to one row per unit have the same likelihood; the residual of each unit is
+    drawn on its own, so residual tests count units, as on the expanded data.  Above
+    ``max_units`` units a simple random sample of ``max_units`` of them is taken (drawn
+    without replacement with :meth:`numpy.random.Generator.multivariate_hypergeometric`).
+
+    Raises
+    ------
+    OrdinalDataError
+        When the weights are not whole numbers (there are no units to draw for).
+    """
+    weights = res.training.weights
+    if weights is None:
+        return None
+    if not whole_counts(weights):
+        raise OrdinalDataError("residuals per counted unit need whole-number frequency weights; "
+                               f"the weights of this fit are not whole numbers (first: {weights[0]!r})")
+    counts = np.asarray(weights, float).astype(np.int64)
+    if counts.sum() > max_units:
+        counts = np.random.default_rng(seed).multivariate_hypergeometric(counts, max_units, method="marginals")
+    return np.repeat(np.arange(len(counts)), counts)
+
+
+def draw_surrogate(res, *, draws=1, seed=None, thresholds=None, per_unit=False) -> SurrogateDraws:
     """Draw surrogate residuals of a fit (Liu & Zhang 2018).
 
     Parameters
@@ -259,6 +299,10 @@ def draw_surrogate(res, *, draws=1, seed=None, thresholds=None) -> SurrogateDraw
         so with a fixed seed residuals move smoothly as thresholds are edited.
     thresholds : array_like, optional
         Edited thresholds to use instead of the fitted ones.
+    per_unit : bool
+        For a fit with whole-number frequency weights: one residual per counted unit
+        (:func:`unit_positions`), so that the residuals are those of the expanded data.
+        Otherwise (default, and for unweighted fits) one residual per row.
 
     Returns
     -------
@@ -266,7 +310,14 @@ def draw_surrogate(res, *, draws=1, seed=None, thresholds=None) -> SurrogateDraw
     """
     draws = _check_draws(draws)
     lower, upper = res.error_bounds(thresholds=_check_thresholds(res, thresholds))
-    u = np.random.default_rng(seed).random((len(lower), draws))
+    rng = np.random.default_rng(seed)
+    units = unit_positions(res, seed=rng) if per_unit else None
+    counted = "rows" if units is None else "counted units"
+    if units is None:
+        units = np.arange(len(lower))
+    else:
+        lower, upper = lower[units], upper[units]
+    u = rng.random((len(lower), draws))
     kind = surrogate_kind(res)
     ref = reference_distribution(res.link, kind)
     if kind == "probability":
@@ -278,7 +329,11 @@ def draw_surrogate(res, *, draws=1, seed=None, thresholds=None) -> SurrogateDraw
         values = sample_truncated(res.link, lower[:, None], upper[:, None], u) - ref.shift
         scaled = " standardised by the fitted scale," if res.options.get("scale_by") else ""
         text = f"latent surrogate residuals,{scaled} following the {ref.name} distribution under a correct model"
-    return SurrogateDraws(values, kind, ref, text)
+    if counted != "rows":
+        total = float(np.sum(res.training.weights))
+        some = f"a random sample of {len(units):,} of {total:,.0f}" if len(units) < total else f"{len(units):,}"
+        text += f"; one residual per counted unit ({some} units from {res.n_training:,} weighted rows)"
+    return SurrogateDraws(values, kind, ref, text, units, counted)
 
 
 def surrogate_residuals(res, *, draws=1, seed=None, thresholds=None) -> np.ndarray:

@@ -6,6 +6,7 @@ from dataclasses import dataclass
 import bqplot as bq
 import ipywidgets as w
 import numpy as np
+import pandas as pd
 
 from .._spec import grid_values
 from ..state import n_training
@@ -19,44 +20,90 @@ _TABLE_ROWS = 12
 
 
 def residual_tools():
-    """The residual and diagnostics modules of the core."""
-    from ..core import diagnostics, residuals
+    """The core's one entry point for everything the panel shows (:func:`residual_diagnostics`)."""
+    from ..core import residual_diagnostics
 
-    return residuals, diagnostics
+    return residual_diagnostics
 
 
 @dataclass(frozen=True, eq=False)
 class ResidualView:
-    """Everything the residual panel draws, computed off the interaction path."""
+    """Everything the residual panel draws, computed off the interaction path.
+
+    A thin reading of the core's :class:`~ordwidgets.core.ResidualDiagnostics` (``report``):
+    ``x`` and ``residuals`` have one entry per residual -- per row, or per counted unit of a
+    fit with frequency weights (``units`` gives each one's fitted row).
+    """
 
     fit: object
     thresholds: object
     draws: int
     seed: int
-    x: np.ndarray
-    residuals: np.ndarray
-    reference: object
-    description: str
-    trend: object
-    qq: object
-    tests: dict
-    moments: object
+    x_arg: object
+    report: object
+
+    @property
+    def residuals(self):
+        return self.report.residuals
+
+    @property
+    def x(self):
+        return self.report.fitted if self.report.x is None else self.report.x
+
+    @property
+    def units(self):
+        return self.report.units
+
+    @property
+    def rows(self):
+        return self.report.rows
+
+    @property
+    def reference(self):
+        return self.report.reference
+
+    @property
+    def description(self):
+        return self.report.description
+
+    @property
+    def trend(self):
+        return self.report.versus_fitted if self.report.x is None else self.report.versus_x
+
+    @property
+    def qq(self):
+        return self.report.qq
+
+    @property
+    def moments(self):
+        return self.report.moments
+
+    @property
+    def tests(self) -> dict:
+        """``{"distance" | "trend" | "spread": (statistic, p_value)}`` against the chosen x."""
+        t = self.report.tests
+        against = "fitted" if self.report.x is None else self.report.x_name
+        pick = {"distance": t[t.test == "distance"]}
+        pick.update({k: t[(t.test == k) & (t.against == against)] for k in ("trend", "spread")})
+        return {k: (float(v.statistic.iloc[0]), float(v.p_value.iloc[0])) for k, v in pick.items()}
+
+    @property
+    def methods(self) -> dict:
+        t = self.report.tests
+        against = "fitted" if self.report.x is None else self.report.x_name
+        return {k: str(t[(t.test == k) & (t.against == against)].method.iloc[0]) for k in ("trend", "spread")}
 
 
 def residual_view(tools, res, thresholds, draws, seed, x) -> ResidualView:
     """Surrogate residuals of ``res`` at ``thresholds`` with their trend, QQ points and tests.
 
-    Every statistic uses all rows; ``x`` is the variable the trend and tests are taken against.
+    ``tools`` is :func:`residual_tools`; ``x`` is what the trend and tests are taken against
+    (``None``: the fitted linear predictor; a Series of numbers; a categorical Series for a
+    factor, summarised per level).  Every statistic uses all rows (all counted units).
     """
-    residuals, diag = tools
-    drawn = residuals.draw_surrogate(res, draws=draws, seed=seed, thresholds=thresholds)
-    r, ref, weights = drawn.residuals, drawn.reference, res.training.weights
-    v = ref.cdf(r[:, 0]) - 0.5
-    tests = {"distance": diag.distance_test(r[:, 0], ref, weights=weights),
-             "trend": diag.trend_test(x, v, weights=weights), "spread": diag.spread_test(x, v, weights=weights)}
-    return ResidualView(res, thresholds, draws, seed, x, r, ref, drawn.description,
-                        diag.binned_means(x, r, bins=20, weights=weights),
-                        diag.qq_points(r, ref, quantiles=200, weights=weights), tests, diag.moment_table(r, ref))
+    report = tools(res, x=x, thresholds=thresholds, draws=draws, seed=seed, quantiles=200,
+                   max_points=MAX_POINTS, display_seed=0)
+    return ResidualView(res, thresholds, draws, seed, x, report)
 
 
 class ResidualPanel(PanelBase):
@@ -137,16 +184,14 @@ class ResidualPanel(PanelBase):
             keep = self.x_choice.value if self.x_choice.value in options else _ETA
             self.x_choice.options, self.x_choice.value = options, keep
             self.seed.value, self.draws.value = self.state.residual_seed, self.state.residual_draws
-        res = self.state.fit
-        self._eta = res.linear_predictor()
-        self._shown = self.tools[1].display_rows(n_training(res), max_points=MAX_POINTS, seed=0)
+        self._eta = self.state.fit.linear_predictor()
 
     def _update_residuals(self):
         """Recompute residuals and diagnostics: inline on a refit, as long work on edits."""
         st = self.state
         with self._guard():
             self.seed.value, self.draws.value = st.residual_seed, st.residual_draws
-        args = (st.fit, st.theta if st.edited else None, st.residual_draws, st.residual_seed, self.x_values()[0])
+        args = (st.fit, st.theta if st.edited else None, st.residual_draws, st.residual_seed, self.core_x())
         if "fit" in st.changed or st.executor is None:
             self._draw(residual_view(self.tools, *args))
             return
@@ -159,6 +204,17 @@ class ResidualPanel(PanelBase):
             self._draw(view)
         else:
             self.count.value = f"<span style='color:#b3261e'>residuals failed: {esc(view)}</span>"
+
+    def core_x(self):
+        """The chosen x as the core takes it: ``None`` (fitted), numbers, or a categorical factor."""
+        name = self.x_choice.value
+        if name in (None, _ETA):
+            return None
+        column = self.state.frame[name]
+        if self.state.is_categorical(name):
+            levels = grid_values(column, True)
+            return pd.Series(pd.Categorical(column.to_numpy(), categories=levels), name=name)
+        return pd.Series(column.to_numpy(float), name=name)
 
     def x_values(self):
         """Values of the chosen x variable for every fitted row, and tick labels if categorical."""
@@ -175,18 +231,19 @@ class ResidualPanel(PanelBase):
     def _x_chosen(self, change):
         if not self._syncing:
             self._draw(residual_view(self.tools, self.view.fit, self.view.thresholds, self.view.draws,
-                                     self.view.seed, self.x_values()[0]))
+                                     self.view.seed, self.core_x()))
 
     def _draw(self, view):
         """Copy a computed :class:`ResidualView` onto the marks."""
         self.view = view
+        self._shown = view.units[view.rows]  # fitted row of each drawn point
         ticks = self.x_values()[1]
-        r, trend, qq, shown = view.residuals, view.trend, view.qq, self._shown
+        r, trend, qq, drawn = view.residuals, view.trend, view.qq, view.rows
         with self.points.hold_sync(), self.trend.hold_sync(), self.band.hold_sync(), self.qq.hold_sync():
-            self.points.x, self.points.y = view.x[shown], r[shown, 0]
+            self.points.x, self.points.y = view.x[drawn], r[drawn, 0]
             self.trend.x, self.trend.y = trend["center"].to_numpy(), trend["mean"].to_numpy()
             self.band.x, self.band.y = trend["center"].to_numpy(), trend[["lower", "upper"]].to_numpy().T
-            self.zero.x, self.zero.y = [float(np.min(view.x)), float(np.max(view.x))], [0.0, 0.0]
+            self.zero.x, self.zero.y = [float(np.nanmin(view.x)), float(np.nanmax(view.x))], [0.0, 0.0]
             self.qq.x, self.qq.y = qq["theoretical"].to_numpy(), qq["sample"].to_numpy()
             ends = [float(qq["theoretical"].min()), float(qq["theoretical"].max())]
             self.qq_line.x, self.qq_line.y = ends, ends
@@ -196,18 +253,18 @@ class ResidualPanel(PanelBase):
         self._update_summary(view)
 
     def _update_summary(self, view):
-        name = self.x_choice.value
-        rows = [[f"distance from {view.reference.name}", *view.tests["distance"]],
-                [f"trend against {name}", *view.tests["trend"]], [f"spread against {name}", *view.tests["spread"]]]
+        name, tests, methods = self.x_choice.value, view.tests, view.methods
+        rows = [[f"distance from {view.reference.name}", *tests["distance"]],
+                [f"trend against {name} ({methods['trend']})", *tests["trend"]],
+                [f"spread against {name} ({methods['spread']})", *tests["spread"]]]
         rows = [[label, fmt(s, 4), fmt(p, 3)] for label, s, p in rows]
+        if view.report.x_levels is not None:
+            rows += [[f"mean residual, {name} = {lv}", fmt(m, 4), f"{c:,.10g} {view.report.counted}"]
+                     for lv, m, c in zip(view.trend["level"], view.trend["mean"], view.trend["count"])]
         rows += [[f"{m['summary']}: observed / expected", f"{fmt(m['observed'], 4)} / {fmt(m['expected'], 4)}", ""]
                  for _, m in view.moments.iterrows()]
-        res = view.fit
-        n, kept = res.n_rows, n_training(res)
-        scope = f"statistics use all {n:,} rows" if kept == n else \
-            f"residual checks use {res.training.describe()} (the estimates use all {n:,})"
-        self.count.value = (f"showing {len(self._shown):,} of {kept:,} points (reproducible sample); "
-                            f"{esc(scope)}. {esc(view.description)}.")
+        self.count.value = (f"showing {len(view.rows):,} of {len(view.units):,} points (reproducible sample); "
+                            f"{esc(_scope(view))}. {esc(view.description)}.")
         self.summary.value = html_table(["check", "statistic", "p-value"], rows)
 
     # ---- brushing and selection -----------------------------------------------------------------------
@@ -230,8 +287,31 @@ class ResidualPanel(PanelBase):
             return
         frame = self.state.frame.iloc[rows[:_TABLE_ROWS]]  # by position: index labels may repeat
         cols = [self.state.fit.response] + [c for c in self.state.included if c in frame.columns]
-        body = [[idx] + [frame[c].iat[k] for c in cols] + [fmt(self.view.residuals[p, 0], 4)]
+        first = _first_residual(self.view.units)
+        body = [[idx] + [frame[c].iat[k] for c in cols]
+                + [fmt(self.view.residuals[first[p], 0], 4) if p in first else "- (weight 0)"]
                 for k, (idx, p) in enumerate(zip(frame.index, rows[:_TABLE_ROWS]))]
         more = f" (first {_TABLE_ROWS} shown)" if rows.size > _TABLE_ROWS else ""
         self.table.value = (f"<b>{rows.size:,} selected rows</b>{more}"
                             + html_table(["row"] + cols + ["residual"], body))
+
+
+def _scope(view) -> str:
+    """What the statistics count: all rows, all counted units, or the sample a Dask fit kept."""
+    res, counted = view.fit, view.report.counted
+    n, kept = res.n_rows, n_training(res)
+    if kept != n:
+        return f"residual checks use {res.training.describe()} (the estimates use all {n:,})"
+    if counted == "counted units":
+        return (f"one point per counted unit: statistics count all {len(view.units):,} units "
+                f"of the {n:,} weighted rows")
+    if counted == "weighted rows":
+        return (f"statistics weight the {n:,} rows; the weights are not whole counts, so the tests "
+                "are not computed")
+    return f"statistics use all {n:,} rows"
+
+
+def _first_residual(units):
+    """``{fitted row: position of its first residual}`` (rows of weight zero have none)."""
+    rows, first = np.unique(units, return_index=True)
+    return dict(zip(rows.tolist(), first.tolist()))
