@@ -30,68 +30,28 @@ def residual_tools():
 class ResidualView:
     """Everything the residual panel draws, computed off the interaction path.
 
-    A thin reading of the core's :class:`~ordwidgets.core.ResidualDiagnostics` (``report``):
-    ``x`` and ``residuals`` have one entry per residual -- per row, or per counted unit of a
-    fit with frequency weights (``units`` gives each one's fitted row).
+    A reading of the core's :class:`~ordwidgets.core.ResidualDiagnostics` (``report``):
+    ``x`` and ``report.residuals`` have one entry per residual -- per row, or per counted
+    unit of a fit with frequency weights (``report.units`` gives each one's fitted row).
+    ``trend`` is the binned (or per-level) mean against the chosen x; ``tests`` maps
+    ``"distance"``, ``"trend"``, ``"spread"`` to ``(statistic, p_value)`` and ``methods``
+    names the trend and spread tests.
     """
 
     fit: object
     thresholds: object
     draws: int
     seed: int
-    x_arg: object
     report: object
+    x: np.ndarray
+    trend: pd.DataFrame
+    tests: dict
+    methods: dict
 
-    @property
-    def residuals(self):
-        return self.report.residuals
-
-    @property
-    def x(self):
-        return self.report.fitted if self.report.x is None else self.report.x
-
-    @property
-    def units(self):
-        return self.report.units
-
-    @property
-    def rows(self):
-        return self.report.rows
-
-    @property
-    def reference(self):
-        return self.report.reference
-
-    @property
-    def description(self):
-        return self.report.description
-
-    @property
-    def trend(self):
-        return self.report.versus_fitted if self.report.x is None else self.report.versus_x
-
-    @property
-    def qq(self):
-        return self.report.qq
-
-    @property
-    def moments(self):
-        return self.report.moments
-
-    @property
-    def tests(self) -> dict:
-        """``{"distance" | "trend" | "spread": (statistic, p_value)}`` against the chosen x."""
-        t = self.report.tests
-        against = "fitted" if self.report.x is None else self.report.x_name
-        pick = {"distance": t[t.test == "distance"]}
-        pick.update({k: t[(t.test == k) & (t.against == against)] for k in ("trend", "spread")})
-        return {k: (float(v.statistic.iloc[0]), float(v.p_value.iloc[0])) for k, v in pick.items()}
-
-    @property
-    def methods(self) -> dict:
-        t = self.report.tests
-        against = "fitted" if self.report.x is None else self.report.x_name
-        return {k: str(t[(t.test == k) & (t.against == against)].method.iloc[0]) for k in ("trend", "spread")}
+    def __getattr__(self, name):  # residuals, units, rows, reference, description, qq, moments
+        if name.startswith("_") or name == "report":
+            raise AttributeError(name)
+        return getattr(self.report, name)
 
 
 def residual_view(tools, res, thresholds, draws, seed, x) -> ResidualView:
@@ -103,7 +63,14 @@ def residual_view(tools, res, thresholds, draws, seed, x) -> ResidualView:
     """
     report = tools(res, x=x, thresholds=thresholds, draws=draws, seed=seed, quantiles=200,
                    max_points=MAX_POINTS, display_seed=0)
-    return ResidualView(res, thresholds, draws, seed, x, report)
+    t = report.tests
+    against = "fitted" if report.x is None else report.x_name
+    picked = {"distance": t[t.test == "distance"]}
+    picked.update({k: t[(t.test == k) & (t.against == against)] for k in ("trend", "spread")})
+    tests = {k: (float(v.statistic.iloc[0]), float(v.p_value.iloc[0])) for k, v in picked.items()}
+    methods = {k: str(picked[k].method.iloc[0]) for k in ("trend", "spread")}
+    x_drawn, trend = (report.fitted, report.versus_fitted) if report.x is None else (report.x, report.versus_x)
+    return ResidualView(res, thresholds, draws, seed, report, x_drawn, trend, tests, methods)
 
 
 class ResidualPanel(PanelBase):
