@@ -159,8 +159,8 @@ class ResidualPanel(PanelBase):
         with self._guard():
             self.seed.value, self.draws.value = st.residual_seed, st.residual_draws
         args = (st.fit, st.theta if st.edited else None, st.residual_draws, st.residual_seed, self.core_x())
-        if "fit" in st.changed or st.executor is None:
-            self._draw(residual_view(self.tools, *args))
+        if "fit" in st.changed or st.executor is None or getattr(self, "view", None) is None:
+            self._draw(residual_view(self.tools, *args))  # a refit, or the first drawing
             return
         fit_then = st.fit
         st.run_long("updating residuals", lambda: residual_view(self.tools, *args), self._draw_result,
