@@ -65,7 +65,8 @@ class FitState(tl.HasTraits):
     thresholds = tl.Tuple(help="Thresholds shown (strictly increasing); the fitted ones until edited.")
     loglik = tl.Float(np.nan, help="Log-likelihood at the shown thresholds with the fitted effects.")
     lr_distance = tl.Float(0.0, help="2 * (fitted loglik - shown loglik): likelihood-ratio distance.")
-    scenario = tl.Dict(help="Predictor values of the what-if case (default median / most common).")
+    scenario = tl.Dict(help="Predictor values of the what-if case (default: weighted median / most common "
+                            "level); assigning a partial dict changes only the predictors it names.")
     baseline = tl.Dict(help="Predictor values of the comparison case (same defaults).")
     focus = tl.Unicode("", help="Predictor on the explorer's x-axis.")
     residual_draws = tl.Int(1, min=1, max=50, help="Surrogate residual draws per row.")

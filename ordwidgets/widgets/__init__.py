@@ -17,6 +17,8 @@ CSS classes (``add_class``) are stable hooks for browser tests and styling:
 ``ow-density-figure``       the latent density figure
 ``ow-loglik-readout``       log-likelihood at the shown thresholds and LR distance
 ``ow-reset``                the reset button of the thresholds
+``ow-threshold-message``    why a threshold edit was refused (empty after an accepted one)
+``ow-crossing-note``        why the scenario has no probabilities (cut points cross)
 ``ow-link-selector``        :class:`LinkSelector`
 ``ow-link-dropdown``        the link dropdown
 ``ow-link-table``           loglik / AIC / BIC of every link
@@ -26,6 +28,7 @@ CSS classes (``add_class``) are stable hooks for browser tests and styling:
 ``ow-explorer-figure``      the probability figure
 ``ow-focus-dropdown``       the x-axis predictor dropdown
 ``ow-whatif-table``         baseline vs scenario probabilities and expected score
+``ow-scenario-note``        grid points without probabilities; scenario values outside the data
 ``ow-residual-panel``       :class:`ResidualPanel`
 ``ow-residual-figure``      residuals against the fit or a predictor (brushable)
 ``ow-qq-figure``            QQ plot against the link distribution
