@@ -212,9 +212,34 @@ def test_progress_line_reports_steps_and_final_loglik(frame, capsys):
     assert "done: converged" in capsys.readouterr().err
 
 
-def test_extended_options_refused_on_dask(frame):
-    with pytest.raises(ValueError, match="not supported for Dask"):
-        fit_dask(FORMULA, dd.from_pandas(frame, npartitions=2), nonparallel=["dose"])
+@pytest.mark.parametrize("link", LINKS)
+def test_dask_extended_fit_equals_in_memory_fit(frame, scheduler, link):
+    # nonparallel= and scale_by= on partitions: the same engine and design, sums added up
+    ddf = dd.from_pandas(frame, npartitions=4)
+    options = dict(link=link, nonparallel=["dose"], scale_by=["age"])
+    rd, r = ow.fit(FORMULA, ddf, **options), ow.fit(FORMULA, frame, **options)
+    _same_fit(rd, r)
+    assert rd.layout == r.layout and rd.options["nonparallel"] == ["dose"]
+    assert rd.options["crossing"] == r.options["crossing"]
+
+
+def test_dask_scale_only_variable_and_cache(frame, scheduler):
+    # a scale variable that is not in the formula joins the design as on a pandas frame
+    df = frame.assign(spread=np.linspace(-1.0, 1.0, len(frame)))
+    options = dict(nonparallel=["C(group)"], scale_by=["spread"])
+    r = ow.fit(FORMULA, df, **options)
+    for cache in (False, True):
+        rd = fit_dask(FORMULA, dd.from_pandas(df, npartitions=3), cache=cache, **options)
+        _same_fit(rd, r)
+        assert rd.names == r.names and "scale: spread" in rd.names
+
+
+def test_dask_extended_progress_line(frame):
+    lines = []
+    rd = fit_dask(FORMULA, dd.from_pandas(frame, npartitions=2), progress=lines.append, nonparallel=["dose"])
+    steps = [s for s in lines if s.split(" · ")[1].startswith("Newton step")]
+    assert len(steps) == rd.iterations and "largest score" in steps[-1]
+    assert lines[-1].split(" · ")[1] == f"done: {rd.message}, log-likelihood {rd.loglik:.8g}"
 
 
 def test_core_imports_without_dask():

@@ -23,9 +23,11 @@ import pandas as pd
 
 from .dask_tasks import (PartitionPlan, design_sums, formula_input, moment_partition, prepared_partition,
                          scan_partition, sums_partition)
-from .design import (PreparedData, design_matrix, required_columns, check_collinear_moments,
+from .design import (PreparedData, design_matrix, required_columns,
                      empty_levels, encode_response, split_formula, threshold_labels, unusable_notes)
-from .engine import PreparedFit, check_enough_rows, separated_columns, user_scale_matrix
+from .engine import PreparedFit, check_enough_rows, safe_sd, user_scale_matrix
+from .extended_fit import (as_names, build_layout, check_layout_columns, crossing_report, layout_separation,
+                           resolve_predictors, two_valued)
 from .exceptions import DataWarning, OrdinalDataError
 from .layout import parallel_layout
 from .links import get_link
@@ -116,7 +118,14 @@ class PartitionedDesign:
 
     @property
     def n_params(self) -> int:
-        return self.n_levels - 1 + len(self.plan.names)
+        return self.plan.layout.n_params
+
+    def feasible(self, params):
+        """Finite parameters and increasing thresholds; crossing cuts of rows with
+        per-threshold effects are found by the partitions (their sums are then ``-inf``)."""
+        params = np.asarray(params, float)
+        return bool(np.all(np.isfinite(params))) and (
+            bool(self.plan.layout.nonparallel) or bool(np.all(np.diff(params[:self.n_levels - 1]) > 0)))
 
     def counts(self):
         """Weighted number of rows in each category (all partitions)."""
@@ -126,6 +135,8 @@ class PartitionedDesign:
         """Log-likelihood and, for ``order`` 1 or 2, gradient and Hessian over all rows."""
         parts = self.runner.map(self.task, self.plan, get_link(link).name, np.asarray(params, float), order)
         ll = float(sum(p[0] for p in parts))
+        if not np.isfinite(ll):
+            return -np.inf, None, None
         grad = sum(p[1] for p in parts) if order >= 1 else None
         hess = sum(p[2] for p in parts) if order >= 2 else None
         return ll, grad, hess
@@ -141,34 +152,38 @@ def partitioned_problem(formula, data, *, weights=None, levels=None, callback=No
     show : Progress
         The status line, also the Newton callback.
     """
-    if nonparallel or scale_by:
-        raise ValueError("nonparallel= and scale_by= are not supported for Dask frames yet; "
-                         "fit a pandas DataFrame (or a sample) for the extended model")
     if weights is not None and not isinstance(weights, str):
         raise OrdinalDataError("for a Dask frame weights= must name a column of the frame")
     _require_dask()
-    plan, rhs = _plan(formula, data, weights)
+    names = (as_names(nonparallel, "nonparallel"), as_names(scale_by, "scale_by"))
+    plan, rhs, scale_extra = _plan(formula, data, weights, names[1])
     used = list(dict.fromkeys([plan.response, *plan.columns, *([weights] if weights else [])]))
     runner = PartitionRunner(data[used])  # only these columns are read
     show = progress_for(progress, callback, prefix=f"ordwidgets fit on {runner.n_partitions} partitions · ")
     try:
-        return _prepare(rhs, plan, runner, show, levels, sample_rows, seed, cache), show
+        return _prepare(rhs, plan, runner, show, levels, sample_rows, seed, cache, names, scale_extra), show
     except KeyboardInterrupt:
         show.show("interrupted; no result was made")
         raise
 
 
-def _plan(formula, data, weights):
+def _plan(formula, data, weights, scale_by):
+    """The partition plan; scale-only variables (data columns not in the formula) join the design."""
     response, rhs = split_formula(formula)
     if response not in data.columns:
         raise OrdinalDataError(f"response column {response!r} is not in the data")
     if weights is not None and weights not in data.columns:
         raise OrdinalDataError(f"weights column {weights!r} is not in the data")
     columns = required_columns(rhs, data)
-    return PartitionPlan(response, tuple(columns), weights, categorical=_categorical(data._meta, columns)), rhs
+    extra = [n for n in scale_by if n in data.columns and n not in columns]
+    if extra:
+        rhs = " + ".join([rhs] + [f"`{n}`" for n in extra])
+        columns = required_columns(rhs, data)
+    plan = PartitionPlan(response, tuple(columns), weights, categorical=_categorical(data._meta, columns))
+    return plan, rhs, extra
 
 
-def _prepare(rhs, plan, runner, show, levels, sample_rows, seed, cache):
+def _prepare(rhs, plan, runner, show, levels, sample_rows, seed, cache, names, scale_extra):
     show.show("pass 1: checking rows and learning levels")
     plan, counts, scan, notes = _learn_levels(runner, plan, levels, rhs)
     m = len(counts) - 1
@@ -178,22 +193,36 @@ def _prepare(rhs, plan, runner, show, levels, sample_rows, seed, cache):
     low, high = _combine_ranges(moments)
     training = _sample(moments, sample_rows, scan["rows"]) if sample_rows else None
     del moments  # the sample candidates are not needed any more
-    check_enough_rows(scan["nonzero"], m + len(plan.names))
-    check_collinear_moments(plan.names, mean, cov)
-    sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
-    plan = replace(plan, mean=mean, sd=np.where(sd > 0, sd, 1.0))
+    meta = PreparedData(np.empty((0, len(plan.names))), np.empty(0, np.intp), None, plan.levels_kept,
+                        plan.names, plan.response, rhs, plan.spec, pd.RangeIndex(0), notes)
+    layout = _layout(meta, names, scale_extra, (low, high, mean, cov))
+    check_enough_rows(scan["nonzero"], layout.n_params)
+    check_layout_columns(plan.names, layout, mean, cov)
+    plan = replace(plan, mean=mean, sd=safe_sd(cov), layout=layout)
     design = PartitionedDesign(runner, plan, counts, rows_used=scan["nonzero"])
     if cache:
         show.show("pass 3: preparing the design kept in memory")
         design = PartitionedDesign(runner.kept(prepared_partition, plan), plan, counts, task=design_sums,
                                    rows_used=scan["nonzero"])
-    layout = parallel_layout(plan.names, threshold_labels(plan.levels_kept))
-    meta = PreparedData(np.empty((0, len(plan.names))), np.empty(0, np.intp), None, plan.levels_kept,
-                        plan.names, plan.response, rhs, plan.spec, pd.RangeIndex(0), notes)
+    options = _options(plan.weights, levels, runner, sample_rows, seed, cache)
+    if not layout.is_parallel:
+        options.update(nonparallel=names[0], scale_by=names[1])
     return PreparedFit(design=design, layout=layout, to_user=user_scale_matrix(layout, plan.mean, plan.sd),
                        meta=meta, training=training, n_rows=scan["rows"],
-                       separated=tuple(separated_columns(low, high, plan.names)),
-                       options=_options(plan.weights, levels, runner, sample_rows, seed, cache))
+                       separated=tuple(layout_separation(layout, low, high)), options=options,
+                       after=None if layout.is_parallel else crossing_report(layout, low, high))
+
+
+def _layout(meta, names, scale_extra, moments):
+    """The fit's layout (all parallel without ``nonparallel=`` / ``scale_by=``)."""
+    if not (names[0] or names[1]):
+        return parallel_layout(meta.columns, threshold_labels(meta.levels))
+    spec_vars = () if meta.model_spec is None else meta.model_spec.required_variables
+    original = [v for v in map(str, spec_vars) if v not in scale_extra]
+    scale_only = set(resolve_predictors(scale_extra, meta, "scale_by")) if scale_extra else set()
+    if scale_only and original:
+        scale_only -= set(resolve_predictors(original, meta, "scale_by"))
+    return build_layout(meta, names[0], names[1], scale_only, two_valued(*moments))
 
 
 def _combine_ranges(parts):

@@ -25,7 +25,7 @@ import pandas as pd
 
 from .design import check_mixed_types, weights_array, unusable_rows
 from .exceptions import OrdinalDataError
-from .objective import SortedDesign, category_ranges, sort_by_category
+from .objective import SortedDesign, category_ranges, layout_sorted_design, sort_by_category
 
 __all__ = ["PartitionPlan", "scan_partition", "moment_partition", "sums_partition", "formula_input"]
 
@@ -51,6 +51,8 @@ class PartitionPlan:
         the design columns used.
     mean, sd
         Global weighted column means and standard deviations (internal standardisation).
+    layout : ModelLayout or None
+        Which columns are parallel, per-threshold or scale effects (``None``: all parallel).
     """
 
     response: str
@@ -63,6 +65,7 @@ class PartitionPlan:
     names: tuple = ()
     mean: np.ndarray = field(default_factory=lambda: np.zeros(0))
     sd: np.ndarray = field(default_factory=lambda: np.ones(0))
+    layout: object = None
 
     @property
     def levels_kept(self) -> tuple:
@@ -188,14 +191,23 @@ def prepared_partition(part, plan):
     Xs = X[rank]
     Xs -= plan.mean
     Xs /= plan.sd
-    return SortedDesign(np.asfortranarray(Xs), bounds, None if w is None else w[rank])
+    w = None if w is None else w[rank]
+    if plan.layout is None or plan.layout.is_parallel:
+        return SortedDesign(np.asfortranarray(Xs), bounds, w)
+    return layout_sorted_design(plan.layout, Xs, bounds, w, plan.mean, plan.sd)
 
 
 def design_sums(design, plan, link, params, order):
-    """Log-likelihood, gradient and Hessian of a prepared partition (``plan`` unused)."""
+    """Log-likelihood, gradient and Hessian of a prepared partition (``plan`` unused).
+
+    ``-inf`` when the cuts cross for some row of the partition (per-threshold effects), so
+    the line search rejects such a step without a pass of its own.
+    """
     if design.X.shape[0] == 0:
         k = len(params)
         return 0.0, np.zeros(k) if order >= 1 else None, np.zeros((k, k)) if order >= 2 else None
+    if not design.feasible(params):
+        return -np.inf, None, None
     return design.sums(link, params, order=order)
 
 

@@ -24,13 +24,14 @@ from .design import check_collinear_moments, prepare, split_formula, threshold_l
 from .engine import PreparedFit, check_enough_rows, maximise, separated_columns, user_scale_matrix
 from .exceptions import CrossingError, CrossingWarning, OrdinalDataError
 from .layout import ModelLayout
-from .objective import SortedDesign, sort_by_category, sorted_standardised
+from .objective import layout_sorted_design, sort_by_category, sorted_standardised
 from .optimize import ascent_direction
 
 __all__ = ["extended_problem", "fit_layout", "layout_design", "resolve_predictors", "crossing_in_range"]
 
 
-def _as_list(names, what):
+def as_names(names, what):
+    """A list of predictor names from ``None``, one name or a list; anything else is refused."""
     if names is None:
         return []
     if isinstance(names, str):
@@ -98,14 +99,37 @@ def _prepare_with_scale(formula, data, weights, levels, scale_names):
     return wide, scale_only
 
 
-def _build_layout(prep, nonparallel, scale_by, scale_only):
+def two_valued(low, high, mean, cov):
+    """Which columns take at most two values, from their range and moments.
+
+    A variable on ``[a, b]`` with mean ``mu`` has variance at most ``(b - mu)(mu - a)``, with
+    equality exactly when all its mass sits on ``a`` and ``b`` (Bhatia & Davis 2000, Amer.
+    Math. Monthly 107:353-357).
+
+    Parameters
+    ----------
+    low, high : ndarray, shape (J, p)
+        Per-category ranges (see :class:`~ordwidgets.core.objective.SortedColumns`).
+    mean, cov : weighted moments
+    """
+    a, b = low.min(axis=0), high.max(axis=0)
+    bound = (b - mean) * (mean - a)
+    var = np.diag(cov)
+    return var >= bound - 1e-9 * np.maximum(np.abs(bound), np.abs(b - a) ** 2)
+
+
+def build_layout(prep, nonparallel, scale_by, scale_only, at_most_two):
+    """The layout of the named predictors (``prep``: columns, model spec, levels).
+
+    ``at_most_two`` is a boolean per design column (:func:`two_valued`).
+    """
     nonpar = resolve_predictors(nonparallel, prep, "nonparallel")
     scale = resolve_predictors(scale_by, prep, "scale_by")
     bad = [i for i in nonpar if i in scale_only]
     if bad:
         raise OrdinalDataError(f"nonparallel= names columns not in the formula: {_names(prep, bad)}")
     for i in set(nonpar) & set(scale):
-        if len(np.unique(prep.X[:, i])) <= 2:
+        if at_most_two[i]:
             raise OrdinalDataError(
                 f"predictor {prep.columns[i]!r} takes at most two values: per-threshold effects "
                 "and a scale effect for it cannot both be identified; drop it from one list"
@@ -170,11 +194,7 @@ def layout_design(layout, D, y, weights, *, columns=None):
     order, bounds = sort_by_category(y, layout.m + 1)
     w = None if weights is None else np.asarray(weights, float)[order]
     cols = sorted_standardised(D, order, bounds, w) if columns is None else columns
-    Xs = cols.X
-    X, W, Z = layout.arrays(Xs)
-    if layout.scale:
-        Z = Z + (cols.mean / cols.sd)[list(layout.scale)]
-    design = SortedDesign(np.asfortranarray(X), bounds, w, W=W, Z=Z)
+    design = layout_sorted_design(layout, cols.X, bounds, w, cols.mean, cols.sd)
     return design, user_scale_matrix(layout, cols.mean, cols.sd)
 
 
@@ -213,9 +233,15 @@ def crossing_in_range(layout, params, D):
     """
     if not layout.nonparallel:
         return []
-    theta, _, gamma, _ = layout.split(params)
     W = layout.arrays(D)[1]
-    lo, hi = W.min(axis=0), W.max(axis=0)
+    return crossing_in_box(layout, params, W.min(axis=0), W.max(axis=0))
+
+
+def crossing_in_box(layout, params, lo, hi):
+    """:func:`crossing_in_range` from the smallest and largest value of each non-parallel column."""
+    if not layout.nonparallel:
+        return []
+    theta, _, gamma, _ = layout.split(params)
     dg = np.diff(gamma, axis=1)
     worst = np.diff(theta) - np.maximum(lo[:, None] * dg, hi[:, None] * dg).sum(axis=0)
     t = layout.thresholds
@@ -224,40 +250,48 @@ def crossing_in_range(layout, params, D):
 
 def extended_problem(formula, data, *, weights=None, levels=None, nonparallel=None, scale_by=None):
     """Prepare a fit with per-threshold and/or scale effects (see :func:`ordwidgets.core.fit`)."""
-    nonparallel, scale_by = _as_list(nonparallel, "nonparallel"), _as_list(scale_by, "scale_by")
+    nonparallel, scale_by = as_names(nonparallel, "nonparallel"), as_names(scale_by, "scale_by")
     prep, scale_only = _prepare_with_scale(formula, data, weights, levels, scale_by)
-    layout = _build_layout(prep, nonparallel, scale_by, scale_only)
-    check_enough_rows(prep.y.shape[0] if prep.weights is None else int(np.count_nonzero(prep.weights)),
-                      layout.n_params)
-    loc = sorted(layout.location + layout.nonparallel)
     order, bounds = sort_by_category(prep.y, len(prep.levels))
     cols = sorted_standardised(prep.X, order, bounds, None if prep.weights is None else prep.weights[order])
-    _check_collinear_parts(prep, layout, cols, loc)
+    layout = build_layout(prep, nonparallel, scale_by, scale_only, two_valued(cols.low, cols.high, cols.mean, cols.cov))
+    check_enough_rows(prep.y.shape[0] if prep.weights is None else int(np.count_nonzero(prep.weights)),
+                      layout.n_params)
+    check_layout_columns(prep.columns, layout, cols.mean, cols.cov)
     design, to_user = layout_design(layout, prep.X, prep.y, prep.weights, columns=cols)
-    separated = separated_columns(cols.low[:, loc], cols.high[:, loc], [prep.columns[i] for i in loc])
+    return PreparedFit(design=design, layout=layout, to_user=to_user, prep=prep,
+                       separated=tuple(layout_separation(layout, cols.low, cols.high)),
+                       options={"weights": weights, "levels": levels, "nonparallel": nonparallel,
+                                "scale_by": scale_by},
+                       explain_failure=_explainer(layout, design), after=crossing_report(layout, cols.low, cols.high))
+
+
+def layout_separation(layout, low, high):
+    """Location columns (parallel or per-threshold) separated in the data (scale-only ones cannot be)."""
+    loc = sorted(layout.location + layout.nonparallel)
+    return separated_columns(low[:, loc], high[:, loc], [layout.columns[i] for i in loc])
+
+
+def crossing_report(layout, low, high):
+    """``after`` hook of an extended fit: warn when fitted cuts cross inside the data's range."""
+    nonpar = list(layout.nonparallel)
+    lo, hi = low[:, nonpar].min(axis=0), high[:, nonpar].max(axis=0)
 
     def after(fitted):
-        crossing = crossing_in_range(layout, fitted.params, prep.X)
+        crossing = crossing_in_box(layout, fitted.params, lo, hi)
         if crossing:
             warnings.warn(
                 f"fitted cumulative probabilities cross inside the range of "
-                f"{_names(prep, layout.nonparallel)} (between thresholds {'; '.join(crossing)}); "
-                "predictions there are not valid probabilities", CrossingWarning, stacklevel=4)
+                f"{', '.join(layout.columns[i] for i in nonpar)} (between thresholds {'; '.join(crossing)}); "
+                "predictions there are not valid probabilities", CrossingWarning, stacklevel=5)
         return {"crossing": crossing}
 
-    return PreparedFit(design=design, layout=layout, to_user=to_user, prep=prep, separated=tuple(separated),
-                       options={"weights": weights, "levels": levels, "nonparallel": nonparallel,
-                                "scale_by": scale_by},
-                       explain_failure=_explainer(layout, design), after=after)
+    return after
 
 
-def _check_collinear_parts(prep, layout, cols, loc):
+def check_layout_columns(columns, layout, mean, cov):
     """Location columns, and scale columns, must each be free of collinearity."""
-    check_collinear_moments([prep.columns[i] for i in loc], cols.mean[loc], cols.cov[np.ix_(loc, loc)])
+    loc = sorted(layout.location + layout.nonparallel)
+    check_collinear_moments([columns[i] for i in loc], mean[loc], cov[np.ix_(loc, loc)])
     sc = list(layout.scale)
-    check_collinear_moments([scale_name_of(prep, i) for i in sc], cols.mean[sc], cols.cov[np.ix_(sc, sc)])
-
-
-def scale_name_of(prep, i):
-    """Display name of a scale column in collinearity messages."""
-    return f"{prep.columns[i]} (scale)"
+    check_collinear_moments([f"{columns[i]} (scale)" for i in sc], mean[sc], cov[np.ix_(sc, sc)])

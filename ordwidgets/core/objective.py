@@ -26,7 +26,7 @@ from .links import get_link
 from .probabilities import interval_logprob
 
 __all__ = ["row_terms", "SortedDesign", "sort_by_category", "sorted_standardised", "SortedColumns",
-           "category_ranges"]
+           "category_ranges", "layout_sorted_design"]
 
 DEFAULT_CHUNK = 131_072
 
@@ -205,6 +205,19 @@ def sorted_standardised(X, order, bounds, weights=None):
     Xs -= centre
     Xs /= sd
     return SortedColumns(Xs, shift + centre, sd, cov, low, high)
+
+
+def layout_sorted_design(layout, Xs, bounds, weights, mean, sd):
+    """A :class:`SortedDesign` for ``layout`` from all design columns standardised and sorted.
+
+    ``Xs = (D - mean) / sd`` in sorted order: location columns (parallel and per-threshold)
+    stay centred and scaled, scale columns are only scaled (``D / sd``), which keeps the map
+    back to the user's scale linear.
+    """
+    X, W, Z = layout.arrays(Xs)
+    if layout.scale:
+        Z = Z + (np.asarray(mean) / np.asarray(sd))[list(layout.scale)]
+    return SortedDesign(np.asfortranarray(X), bounds, weights, W=W, Z=Z)
 
 
 def _segments(bounds, chunk):
