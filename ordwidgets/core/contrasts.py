@@ -135,7 +135,7 @@ def averaged_probabilities(res, frames, level):
     method on the logit scale of the averaged probability (see
     :func:`~ordwidgets.core.effects.prediction_intervals`).
     """
-    tr = res._training()
+    tr = res.training_rows()
     w = np.ones(len(tr.y)) if tr.weights is None else tr.weights
     w = w / w.sum()
     est, grad = [], []

@@ -164,7 +164,7 @@ def average_marginal_effects(res):
         ``part`` in ``"effect"``, ``"std_error"``; ``frame.attrs["kind"]`` says which rows are
         derivatives and which discrete changes.
     """
-    tr = res._training()
+    tr = res.training_rows()
     layout = layout_of(res)
     w = np.ones(len(tr.y)) if tr.weights is None else tr.weights
     w = w / w.sum()

@@ -309,7 +309,7 @@ def error_bounds_of(res, thresholds=None, coefficients=None):
     With scale effects the ends are divided by the row's scale ``exp(z'zeta)``; with
     per-threshold effects each end uses the effects of its own threshold.
     """
-    tr = res._training()
+    tr = res.training_rows()
     m = res.n_thresholds
     theta = res.params[:m] if thresholds is None else np.asarray(thresholds, float)
     rest = res.params[m:] if coefficients is None else np.asarray(coefficients, float)
@@ -348,7 +348,7 @@ def all_training_rows(res, what):
     Refits and profiles compare log-likelihoods with ``res.loglik``, which only makes sense
     on every row that was fitted.
     """
-    tr = res._training()
+    tr = res.training_rows()
     if getattr(tr, "is_sample", False):
         raise ValueError(f"{what} needs every fitted row, but this fit keeps {tr.describe()}; "
                          "fit the rows as a pandas DataFrame for it")

@@ -387,6 +387,13 @@ def _nz(v, n):
     return np.zeros(n) if v is None else v
 
 
+def _plus(a, b):
+    """``a + b`` where ``None`` stands for zeros."""
+    if a is None:
+        return b
+    return a if b is None else a + b
+
+
 class _Accumulator:
     """Adds one segment's gradient and Hessian terms (chain rule through the cuts).
 
@@ -416,43 +423,45 @@ class _Accumulator:
         return np.array([j] + [base + c * self.m + j for c in range(self.q)])
 
     def add(self, k, m, X, W, Z, w, inv, ends, t):
+        dests = [self._dest(k) if ends[0] is not None else None, self._dest(k - 1) if ends[1] is not None else None]
+        if self.q == 0 and self.r == 0:
+            self._add_plain(k, X, w, t, dests)
+            return
         n = len(X)
         wt = 1.0 if w is None else w
         gu, gl = _nz(t["gu"], n) * wt, _nz(t["gl"], n) * wt
-        dests = [self._dest(k) if ends[0] is not None else None, self._dest(k - 1) if ends[1] is not None else None]
-        if self.q == 0 and self.r == 0:
-            self._add_plain(k, X, wt, gu, gl, t, dests)
-        else:
-            self._add_extended(X, W, Z, wt, gu, gl, t, inv, ends, dests)
+        self._add_extended(X, W, Z, wt, gu, gl, t, inv, ends, dests)
 
-    def _add_plain(self, k, X, wt, gu, gl, t, dests):
-        """Parallel model: the threshold parts are plain sums."""
-        n = len(X)
-        g, b = self.g, self.beta
-        if dests[0] is not None:
+    def _add_plain(self, k, X, w, t, dests):
+        """Parallel model: the threshold parts are plain sums; missing ends cost nothing."""
+        g, H, C, b = self.g, self.H, self.C, self.beta
+        weigh = (lambda v: v) if w is None else (lambda v: None if v is None else v * w)  # noqa: E731
+        gu, gl = weigh(t["gu"]), weigh(t["gl"])
+        gsum = _plus(gu, gl)
+        if gu is not None:
             g[k] += gu.sum()
-        if dests[1] is not None:
+        if gl is not None:
             g[k - 1] += gl.sum()
-        if self.H is None:
+        if H is None:
             if self.p:
-                g[b] -= X.T @ (gu + gl)
+                g[b] -= X.T @ gsum
             return
-        huu, hll, hul = (_nz(t[key], n) * wt for key in ("huu", "hll", "hul"))
+        huu, hll, hul = weigh(t["huu"]), weigh(t["hll"]), weigh(t["hul"])
+        cu, cl = _plus(huu, hul), _plus(hll, hul)
         if self.p:
-            G = X.T @ np.column_stack([gu + gl, huu + hul, hll + hul])
+            G = X.T @ np.column_stack([v for v in (gsum, cu, cl) if v is not None])
             g[b] -= G[:, 0]
-            H, C = self.H, self.C
-            if dests[0] is not None:
+            if cu is not None:
                 C[k, b] -= G[:, 1]
-            if dests[1] is not None:
-                C[k - 1, b] -= G[:, 2]
-            H[b, b] += _weighted_gram(X, huu + hll + 2.0 * hul)
-        if dests[0] is not None:
-            self.H[k, k] += huu.sum()
-        if dests[1] is not None:
-            self.H[k - 1, k - 1] += hll.sum()
-            if dests[0] is not None:
-                self.C[k, k - 1] += hul.sum()
+            if cl is not None:
+                C[k - 1, b] -= G[:, -1]
+            H[b, b] += _weighted_gram(X, _plus(cu, cl) if hul is None else cu + cl)
+        if huu is not None:
+            H[k, k] += huu.sum()
+        if hll is not None:
+            H[k - 1, k - 1] += hll.sum()
+        if hul is not None:
+            C[k, k - 1] += hul.sum()
 
     def _add_extended(self, X, W, Z, wt, gu, gl, t, inv, ends, dests):
         n = len(X)

@@ -41,7 +41,7 @@ OVERALL = "(overall)"
 
 
 def _lr_row(res, layout):
-    tr = res._training()
+    tr = res.training_rows()
     try:
         out = fit_layout(layout, tr.X, tr.y, tr.weights, res.link, warn=False)
     except CrossingError:
@@ -57,7 +57,7 @@ def _lr_row(res, layout):
 
 def _binary_fits(res, cols):
     """Separate fits of ``1(Y > j)``; returns parameters ``(m, 1 + p)`` and notes."""
-    tr = res._training()
+    tr = res.training_rows()
     X = tr.X[:, cols]
     layout = ModelLayout(tuple(f"c{i}" for i in range(len(cols))), tuple(range(len(cols))), (), (), ("cut",))
     params, notes = [], []
@@ -71,7 +71,7 @@ def _binary_fits(res, cols):
 
 def _brant_covariance(res, X, params):
     """Joint covariance of the stacked separate-fit parameters (Brant 1990, sec. 3)."""
-    tr = res._training()
+    tr = res.training_rows()
     w = np.ones(len(X)) if tr.weights is None else tr.weights
     D = np.column_stack([-np.ones(len(X)), X])
     t = params[:, :1].T - X @ params[:, 1:].T
@@ -121,7 +121,7 @@ def brant_test(res):
         return pd.DataFrame({**{c: np.nan for c in cols}, "brant_note": note}, index=names)
     loc = sorted(layout.location + layout.nonparallel)
     params, notes = _binary_fits(res, loc)
-    V = _brant_covariance(res, res._training().X[:, loc], params)
+    V = _brant_covariance(res, res.training_rows().X[:, loc], params)
     tested = [loc.index(i) for i in layout.location]
     out = {}
     for name, which in zip(names, [[t] for t in tested] + [tested]):

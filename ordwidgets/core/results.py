@@ -155,7 +155,7 @@ class FitResult:
     def design(self, data=None) -> np.ndarray:
         """Design matrix (no intercept) for ``data`` (default: the training rows)."""
         if data is None:
-            return self._training().X
+            return self.training_rows().X
         cols = self.layout.columns
         if self.model_spec is None or not cols:
             return np.empty((len(data), 0))
@@ -227,7 +227,7 @@ class FitResult:
         For a Dask fit the training rows are the kept sample (``training.sampled_from``):
         the value is the sample's log-likelihood, not comparable with ``loglik``.
         """
-        tr = self._training()
+        tr = self.training_rows()
         logp = interval_logprob(self.link, *self.error_bounds(thresholds, coefficients))
         return float(logp.sum() if tr.weights is None else tr.weights @ logp)
 
@@ -321,10 +321,13 @@ class FitResult:
 
         return average_marginal_effects(self)
 
-    def _training(self) -> TrainingData:
+    def training_rows(self) -> TrainingData:
+        """The rows held in the result; refused when it was fitted with ``keep_data=False``."""
         if self.training is None:
             raise ValueError("this result does not hold its training data (fit with keep_data=True)")
         return self.training
+
+    _training = training_rows  # the former private spelling, kept while other modules move over
 
     def _index(self, data, n):
         if data is not None and hasattr(data, "index"):
