@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .effects import check_level, logit_interval, probability_jacobian
+from .effects import check_level, logit_interval, probability_jacobian, wald_bounds
 from .layout import all_training_rows, layout_of
 from .terms import term_columns
 
@@ -215,8 +215,8 @@ def probability_difference(res, scenario, baseline, *, level=0.95) -> pd.DataFra
     g = gs[0] - gb[0]
     g = np.vstack([g, scores @ g])
     se = np.sqrt(np.maximum(np.einsum("jp,pq,jq->j", g, res.cov, g), 0.0))
-    q = stats.norm.isf((1 - level) / 2)
     diff = est_s - est_b
+    low, high = wald_bounds(diff, se, level)
     index = pd.Index([str(v) for v in res.levels] + ["expected score (1..J)"], name="response")
     return pd.DataFrame({"baseline": est_b, "scenario": est_s, "difference": diff, "std_error": se,
-                         "low": diff - q * se, "high": diff + q * se}, index=index)
+                         "low": low, "high": high}, index=index)

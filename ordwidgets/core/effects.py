@@ -21,7 +21,19 @@ from .layout import cumulative_predictors, end_jacobian, layout_of
 from .probabilities import interval_probability
 
 __all__ = ["probabilities_at", "probability_jacobian", "prediction_intervals", "average_marginal_effects",
-           "logit_interval"]
+           "logit_interval", "wald_bounds", "check_level"]
+
+
+def wald_bounds(estimate, std_error, level):
+    """Wald interval ``estimate -+ z_{(1+level)/2} * std_error`` (the one place it is built).
+
+    Returns
+    -------
+    low, high : same shape as ``estimate``
+    """
+    check_level(level)
+    q = stats.norm.isf((1 - level) / 2)
+    return estimate - q * std_error, estimate + q * std_error
 
 
 def check_level(level):

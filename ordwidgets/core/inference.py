@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, stats
 
-from .effects import check_level
+from .effects import check_level, wald_bounds
 from .exceptions import ComparisonError, ConvergenceWarning, CrossingError
 from .layout import ExtendedDesign, all_training_rows, layout_of
 from .links import get_link, link_names
@@ -31,10 +31,8 @@ _MAX_DOUBLINGS = 10
 
 def wald_intervals(res, level=0.95):
     """``estimate -+ z * SE`` for every parameter (rows aligned with ``res.std_errors``)."""
-    check_level(level)
-    q = stats.norm.isf((1 - level) / 2)
-    est, se = pd.Series(res.params, index=res.names), res.std_errors
-    return pd.DataFrame({"lower": est - q * se, "upper": est + q * se})
+    low, high = wald_bounds(pd.Series(res.params, index=res.names), res.std_errors, level)
+    return pd.DataFrame({"lower": low, "upper": high})
 
 
 class _Profile:

@@ -9,9 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
-from .effects import check_level
+from .effects import check_level, wald_bounds
 from .layout import effect_groups
 
 __all__ = ["odds_scale", "exp_beta_meaning", "EXP_BETA_MEANING"]
@@ -61,6 +60,6 @@ def odds_scale(res, *, level=0.95) -> pd.DataFrame:
     idx = [res.names.index(n) for n in names]
     est = res.params[idx]
     se = np.sqrt(np.maximum(np.diag(res.cov)[idx], 0.0))
-    q = stats.norm.isf((1 - level) / 2)
-    return pd.DataFrame({"odds_ratio": np.exp(est), "wald_low": np.exp(est - q * se),
-                         "wald_high": np.exp(est + q * se)}, index=pd.Index(names, name="effect"))
+    low, high = wald_bounds(est, se, level)
+    return pd.DataFrame({"odds_ratio": np.exp(est), "wald_low": np.exp(low),
+                         "wald_high": np.exp(high)}, index=pd.Index(names, name="effect"))

@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .effects import check_level, prediction_intervals, probabilities_at
+from .effects import prediction_intervals, probabilities_at, wald_bounds
 from .layout import effect_groups, error_bounds_of, location_predictor, model_facts
 from .links import Link
 from .probabilities import interval_logprob
@@ -141,14 +141,13 @@ class FitResult:
         Columns ``estimate``, ``std_error``, ``z``, ``p_value``, ``wald_low``, ``wald_high``
         (the Wald interval ``estimate -+ z_{(1+level)/2} * std_error`` of coverage ``level``).
         """
-        check_level(level)
         est = pd.Series(self.params, index=self.names)
         se = self.std_errors
         z = est / se
-        q = stats.norm.isf((1 - level) / 2)
+        low, high = wald_bounds(est, se, level)
         return pd.DataFrame(
             {"estimate": est, "std_error": se, "z": z, "p_value": 2 * stats.norm.sf(np.abs(z)),
-             "wald_low": est - q * se, "wald_high": est + q * se}
+             "wald_low": low, "wald_high": high}
         )
 
     # ---- prediction ------------------------------------------------------------------------
