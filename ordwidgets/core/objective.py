@@ -271,6 +271,9 @@ class SortedDesign:
             self.W = np.empty((n, 0))
         if self.Z is None:
             self.Z = np.empty((n, 0))
+        # [1, W, Z]: the thin columns of the threshold, per-threshold and scale parts
+        self._S = None if not (self.W.shape[1] or self.Z.shape[1]) else np.asfortranarray(
+            np.column_stack([np.ones(n), self.W, self.Z]))
 
     @property
     def n_levels(self) -> int:
@@ -307,10 +310,10 @@ class SortedDesign:
     def gaps(self, params):
         """Gaps between adjacent cuts ``theta_j - w'gamma_j`` per row, ``(n, m - 1)``."""
         theta, _, gamma, _ = self.split(np.asarray(params, float))
-        gaps = np.diff(theta)[None, :]
+        gaps = np.broadcast_to(np.diff(theta)[None, :], (len(self.X), len(theta) - 1))
         if gamma.size:
-            gaps = gaps - self.W @ np.diff(gamma, axis=1)
-        return np.broadcast_to(gaps, (len(self.X), len(theta) - 1))
+            gaps = gaps - _combine(self.W, np.diff(gamma, axis=1))
+        return gaps
 
     def feasible(self, params):
         """Finite parameters and strictly increasing cuts for every row."""
@@ -364,13 +367,13 @@ class SortedDesign:
         inv = None
         if zeta.size:
             with np.errstate(over="ignore"):
-                inv = np.exp(-(Z @ zeta))
+                inv = np.exp(-_combine(Z, zeta[:, None])[:, 0])
         ends = []
         for j in (k, k - 1):
             if 0 <= j < m:
                 a = theta[j] - eta
                 if gamma.size:
-                    a = a - W @ gamma[:, j]
+                    a = a - _combine(W, gamma[:, j:j + 1])[:, 0]
                 ends.append(a if inv is None else a * inv)
             else:
                 ends.append(None)
@@ -379,8 +382,34 @@ class SortedDesign:
             t = {key: (None if v is None else np.where(w > 0, v, 0.0)) for key, v in t.items()}
         ll = _wsum(w, t["logp"])
         if order >= 1 and np.isfinite(ll):
-            acc.add(k, m, X, W, Z, w, inv, ends, t)
+            acc.add(k, m, X, None if self._S is None else self._S[s:e], w, inv, ends, t)
         return ll
+
+
+def _combine(A, B):
+    """``A @ B`` for a thin ``A`` (a few columns) without BLAS, whose threads can stall on a
+    busy machine for such small products."""
+    out = np.multiply.outer(A[:, 0], B[0]) if A.shape[1] else np.zeros((len(A), B.shape[1]))
+    for c in range(1, A.shape[1]):
+        out += np.multiply.outer(A[:, c], B[c])
+    return out
+
+
+def _columns(S, parts):
+    """An ``(n, k)`` Fortran array of weighted columns: ``(None, v)`` gives ``v``, ``(cols, v)``
+    gives ``S[:, cols] * v`` column by column (no broadcast temporaries)."""
+    width = sum(1 if cols is None else cols.stop - cols.start for cols, _ in parts)
+    out = np.empty((len(S), width), order="F")
+    c = 0
+    for cols, v in parts:
+        if cols is None:
+            out[:, c] = v
+            c += 1
+            continue
+        for i in range(cols.start, cols.stop):
+            np.multiply(S[:, i], v, out=out[:, c])
+            c += 1
+    return out
 
 
 def _nz(v, n):
@@ -422,7 +451,7 @@ class _Accumulator:
         base = self.m + self.p
         return np.array([j] + [base + c * self.m + j for c in range(self.q)])
 
-    def add(self, k, m, X, W, Z, w, inv, ends, t):
+    def add(self, k, m, X, S, w, inv, ends, t):
         dests = [self._dest(k) if ends[0] is not None else None, self._dest(k - 1) if ends[1] is not None else None]
         if self.q == 0 and self.r == 0:
             self._add_plain(k, X, w, t, dests)
@@ -430,7 +459,7 @@ class _Accumulator:
         n = len(X)
         wt = 1.0 if w is None else w
         gu, gl = _nz(t["gu"], n) * wt, _nz(t["gl"], n) * wt
-        self._add_extended(X, W, Z, wt, gu, gl, t, inv, ends, dests)
+        self._add_extended(X, S, wt, gu, gl, t, inv, ends, dests)
 
     def _add_plain(self, k, X, w, t, dests):
         """Parallel model: the threshold parts are plain sums; missing ends cost nothing."""
@@ -463,32 +492,30 @@ class _Accumulator:
         if hul is not None:
             C[k, k - 1] += hul.sum()
 
-    def _add_extended(self, X, W, Z, wt, gu, gl, t, inv, ends, dests):
+    def _add_extended(self, X, S, wt, gu, gl, t, inv, ends, dests):
         n = len(X)
         vu, vl = (np.zeros(n) if e is None else e for e in ends)
         one = np.ones(n) if inv is None else inv
-        Q = np.column_stack([np.ones(n), W])
-        S = np.column_stack([Q, Z])
-        nq = Q.shape[1]
+        nq = 1 + self.q
         if self.H is None:
-            R = S.T @ np.column_stack([gu * one, gl * one, gu * vu + gl * vl])
+            R = S.T @ _columns(S, [(None, gu * one), (None, gl * one), (None, gu * vu + gl * vl)])
             self._gradient(R, dests, nq)
             if self.p:
                 self.g[self.beta] -= X.T @ ((gu + gl) * one)
             return
         huu, hll, hul = (_nz(t[key], n) * wt for key in ("huu", "hll", "hul"))
         one2 = one * one
+        q, z = slice(0, nq), slice(nq, nq + self.r)
         cz = huu * vu + hll * vl + hul * (vu + vl) + gu + gl
-        small = [gu * one, gl * one, gu * vu + gl * vl,
-                 Q * (huu * one2)[:, None], Q * (hll * one2)[:, None], Q * (hul * one2)[:, None],
-                 Z * ((huu * vu + hul * vl + gu) * one)[:, None], Z * ((hll * vl + hul * vu + gl) * one)[:, None],
-                 Z * (huu * vu * vu + hll * vl * vl + 2.0 * hul * vu * vl + gu * vu + gl * vl)[:, None]]
-        R = S.T @ np.column_stack(small)
+        R = S.T @ _columns(S, [(None, gu * one), (None, gl * one), (None, gu * vu + gl * vl),
+                               (q, huu * one2), (q, hll * one2), (q, hul * one2),
+                               (z, (huu * vu + hul * vl + gu) * one), (z, (hll * vl + hul * vu + gl) * one),
+                               (z, huu * vu * vu + hll * vl * vl + 2.0 * hul * vu * vl + gu * vu + gl * vl)])
         self._gradient(R, dests, nq)
         self._small_blocks(R, dests, nq)
         if self.p:
-            G = X.T @ np.column_stack([(gu + gl) * one, Q * ((huu + hul) * one2)[:, None],
-                                       Q * ((hll + hul) * one2)[:, None], Z * (cz * one)[:, None]])
+            G = X.T @ _columns(S, [(None, (gu + gl) * one), (q, (huu + hul) * one2), (q, (hll + hul) * one2),
+                                   (z, cz * one)])
             self._effect_blocks(G, dests, nq)
             self.H[self.beta, self.beta] += _weighted_gram(X, (huu + hll + 2.0 * hul) * one2)
 
