@@ -31,7 +31,8 @@ from scipy import optimize, special
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 import ordwidgets as ow  # noqa: E402
 from ordwidgets.core.engine import closed_form_thresholds  # noqa: E402
-from ordwidgets.core.objective import SortedDesign, sort_by_category  # noqa: E402
+from ordwidgets.core.objective import sort_by_category  # noqa: E402
+from ordwidgets.core.sorted_design import SortedDesign  # noqa: E402
 
 
 def make_data(n, p=10, seed=0):

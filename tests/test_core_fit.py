@@ -7,7 +7,8 @@ from sklearn.datasets import load_diabetes
 from sklearn.linear_model import LogisticRegression
 
 import ordwidgets as ow
-from ordwidgets.core.objective import SortedDesign, sort_by_category, sorted_standardised
+from ordwidgets.core.objective import sort_by_category, sorted_standardised
+from ordwidgets.core.sorted_design import SortedDesign
 
 from . import reference as R
 

@@ -15,7 +15,8 @@ from scipy import differentiate
 import ordwidgets as ow
 from ordwidgets.core.engine import maximise, standardise, user_scale_matrix
 from ordwidgets.core.layout import ExtendedDesign, ModelLayout
-from ordwidgets.core.objective import SortedDesign, sort_by_category
+from ordwidgets.core.objective import sort_by_category
+from ordwidgets.core.sorted_design import SortedDesign
 
 from . import reference_extended as RX
 from .reference import DISTS

@@ -25,7 +25,8 @@ import pandas as pd
 
 from .design import check_mixed_types, weights_array, unusable_rows
 from .exceptions import OrdinalDataError
-from .objective import SortedDesign, category_ranges, layout_sorted_design, sort_by_category
+from .objective import category_ranges, sort_by_category
+from .sorted_design import SortedDesign, layout_sorted_design
 
 __all__ = ["PartitionPlan", "scan_partition", "moment_partition", "sums_partition", "formula_input"]
 

@@ -35,7 +35,7 @@ and optionally
 
 The map to the user's scale is a matrix ``A`` passed as ``to_user=`` (``params_user =
 A @ params_internal``; built by :func:`user_scale_matrix` for standardised columns);
-covariances map as ``A C A'``.  :class:`ordwidgets.core.objective.SortedDesign`
+covariances map as ``A C A'``.  :class:`ordwidgets.core.sorted_design.SortedDesign`
 (rows sorted by category, sums per segment, one Gram product per segment) serves plain
 and extended in-memory fits; :class:`ordwidgets.core.dask_fit.PartitionedDesign` adds the
 sums of partitions.

@@ -24,7 +24,8 @@ from .design import check_collinear_moments, prepare, split_formula, threshold_l
 from .engine import PreparedFit, check_enough_rows, maximise, separated_columns, user_scale_matrix
 from .exceptions import CrossingError, CrossingWarning, OrdinalDataError
 from .layout import ModelLayout
-from .objective import layout_sorted_design, sort_by_category, sorted_standardised
+from .objective import sort_by_category, sorted_standardised
+from .sorted_design import layout_sorted_design
 from .optimize import ascent_direction
 
 __all__ = ["extended_problem", "fit_layout", "layout_design", "resolve_predictors", "crossing_in_range"]

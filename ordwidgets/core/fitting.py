@@ -1,7 +1,7 @@
 """``fit``: the one place a :class:`~ordwidgets.core.results.FitResult` is built.
 
 Every model goes the same way: the data are prepared into a design object (in memory:
-:class:`~ordwidgets.core.objective.SortedDesign`, rows sorted by category on standardised
+:class:`~ordwidgets.core.sorted_design.SortedDesign`, rows sorted by category on standardised
 columns; on Dask frames: :class:`~ordwidgets.core.dask_fit.PartitionedDesign`), handed to
 the engine's :func:`~ordwidgets.core.engine.maximise` and the answer is unpacked into a
 result.  Plain, extended (``nonparallel=``, ``scale_by=``) and partitioned fits differ only
@@ -17,7 +17,8 @@ from .engine import PreparedFit, check_enough_rows, maximise, user_scale_matrix
 from .extended_fit import extended_problem
 from .layout import parallel_layout
 from .links import get_link
-from .objective import SortedDesign, sort_by_category, sorted_standardised
+from .objective import sort_by_category, sorted_standardised
+from .sorted_design import SortedDesign
 from .results import FitResult, TrainingData
 
 __all__ = ["fit", "fit_dask"]

@@ -1,0 +1,387 @@
+"""The sorted-segment design: the engine's design for every in-memory model.
+
+Rows are sorted by response category, so each category is a contiguous block; the sums of
+the log-likelihood, gradient and Hessian are accumulated over *segments* (a run of rows of
+one category, at most ``chunk`` rows long).  Inside a segment every row uses the same two
+cuts, so the effect block of the Hessian is one weighted Gram product ``X'WX`` per segment
+and the rest a few thin products.  Every quantity is additive over rows, which is what lets
+the same design run per partition on Dask.  Per-row terms come from
+:func:`ordwidgets.core.objective.row_terms`.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .links import get_link
+from .objective import row_terms
+
+__all__ = ["SortedDesign", "layout_sorted_design", "DEFAULT_CHUNK"]
+
+DEFAULT_CHUNK = 131_072
+
+
+def layout_sorted_design(layout, Xs, bounds, weights, mean, sd):
+    """A :class:`SortedDesign` for ``layout`` from all design columns standardised and sorted.
+
+    ``Xs = (D - mean) / sd`` in sorted order: location columns (parallel and per-threshold)
+    stay centred and scaled, scale columns are only scaled (``D / sd``), which keeps the map
+    back to the user's scale linear.
+    """
+    X, W, Z = layout.arrays(Xs)
+    if layout.scale:
+        Z = Z + (np.asarray(mean) / np.asarray(sd))[list(layout.scale)]
+    return SortedDesign(np.asfortranarray(X), bounds, weights, W=W, Z=Z)
+
+
+def _segments(bounds, chunk):
+    for k in range(len(bounds) - 1):
+        for s in range(int(bounds[k]), int(bounds[k + 1]), chunk):
+            yield k, s, min(s + chunk, int(bounds[k + 1]))
+
+
+def _wsum(w, v):
+    return float(v.sum()) if w is None else float(w @ v)
+
+
+@dataclass(eq=False)
+class SortedDesign:
+    """Rows sorted by response category: the engine's design for every in-memory model.
+
+    Implements the design protocol of :mod:`ordwidgets.core.engine` for
+    ``P(Y <= j | x) = F((theta_j - x'beta - w'gamma_j) / exp(z'zeta))`` (McCullagh 1980;
+    partial proportional odds, Peterson & Harrell 1990): parameters
+    ``[theta (m), beta (p), gamma (q blocks of m), zeta (r)]``.  A plain fit has no ``W``
+    and no ``Z``.  Within one category all rows use the same two cuts, so each segment
+    needs one weighted Gram product of ``X`` and one product of ``X'`` with a few columns
+    (threshold, per-threshold and scale parts); the blocks of ``W`` and ``Z`` are small.
+
+    Parameters
+    ----------
+    X : ndarray, shape (n, p)
+        Parallel location columns (no intercept), rows sorted by category.
+    bounds : ndarray, shape (J + 1,)
+        Block bounds of the categories in ``X``.
+    weights : ndarray or None
+        Frequency weights in the same row order (``None`` for all ones).
+    chunk : int
+        Maximum rows per segment (bounds temporary memory).
+    W : ndarray, shape (n, q), optional
+        Columns with a separate effect at each threshold.
+    Z : ndarray, shape (n, r), optional
+        Columns of the latent scale ``exp(z'zeta)``.
+    """
+
+    X: np.ndarray
+    bounds: np.ndarray
+    weights: np.ndarray | None = None
+    chunk: int = DEFAULT_CHUNK
+    W: np.ndarray | None = None
+    Z: np.ndarray | None = None
+
+    def __post_init__(self):
+        n = len(self.X)
+        if self.W is None:
+            self.W = np.empty((n, 0))
+        if self.Z is None:
+            self.Z = np.empty((n, 0))
+        # [1, W, Z]: the thin columns of the threshold, per-threshold and scale parts
+        self._S = None if not (self.W.shape[1] or self.Z.shape[1]) else np.asfortranarray(
+            np.column_stack([np.ones(n), self.W, self.Z]))
+
+    @property
+    def n_levels(self) -> int:
+        return len(self.bounds) - 1
+
+    @property
+    def n_params(self) -> int:
+        m = self.n_levels - 1
+        return m + self.X.shape[1] + self.W.shape[1] * m + self.Z.shape[1]
+
+    @property
+    def rows_used(self) -> int:
+        """Rows with positive weight."""
+        return len(self.X) if self.weights is None else int(np.count_nonzero(self.weights))
+
+    @property
+    def y(self) -> np.ndarray:
+        """Category code of each (sorted) row."""
+        return np.repeat(np.arange(self.n_levels), np.diff(self.bounds))
+
+    def counts(self):
+        """Weighted number of rows in each category."""
+        if self.weights is None:
+            return np.diff(self.bounds).astype(float)
+        b = self.bounds
+        return np.array([self.weights[b[k]:b[k + 1]].sum() for k in range(len(b) - 1)])
+
+    def split(self, params):
+        """``theta (m,), beta (p,), gamma (q, m), zeta (r,)``."""
+        m, p, q = self.n_levels - 1, self.X.shape[1], self.W.shape[1]
+        b, g = m + p, m + p + q * m
+        return params[:m], params[m:b], params[b:g].reshape(q, m), params[g:]
+
+    def gaps(self, params):
+        """Gaps between adjacent cuts ``theta_j - w'gamma_j`` per row, ``(n, m - 1)``."""
+        theta, _, gamma, _ = self.split(np.asarray(params, float))
+        gaps = np.broadcast_to(np.diff(theta)[None, :], (len(self.X), len(theta) - 1))
+        if gamma.size:
+            gaps = gaps - _combine(self.W, np.diff(gamma, axis=1))
+        return gaps
+
+    def feasible(self, params):
+        """Finite parameters and strictly increasing cuts for every row."""
+        params = np.asarray(params, float)
+        if not np.all(np.isfinite(params)):
+            return False
+        theta, _, gamma, _ = self.split(params)
+        if not gamma.size:
+            return bool(np.all(np.diff(theta) > 0))
+        return bool(np.all(self.gaps(params) > 0))
+
+    def loglik(self, link, params):
+        """Log-likelihood at ``params``."""
+        return self.sums(link, params, order=0)[0]
+
+    def sums(self, link, params, *, order=2):
+        """Log-likelihood and, for ``order`` 1 or 2, gradient and Hessian.
+
+        Parameters
+        ----------
+        link : Link or str
+        params : ndarray, shape (n_params,)
+        order : {0, 1, 2}
+            Highest derivative to compute.
+
+        Returns
+        -------
+        (loglik, grad or None, hess or None)
+        """
+        link = get_link(link)
+        params = np.asarray(params, float)
+        parts = self.split(params)
+        k_all = len(params)
+        acc = _Accumulator(self, np.zeros(k_all) if order >= 1 else None,
+                           np.zeros((k_all, k_all)) if order >= 2 else None)
+        ll = 0.0
+        for k, s, e in _segments(self.bounds, self.chunk):
+            ll += self._segment(link, parts, k, s, e, order, acc)
+            if not np.isfinite(ll):
+                return -np.inf, None, None
+        if acc.H is not None:
+            acc.H += acc.C + acc.C.T
+        return ll, acc.g, acc.H
+
+    def _segment(self, link, parts, k, s, e, order, acc):
+        theta, beta, gamma, zeta = parts
+        m = self.n_levels - 1
+        X, W, Z = self.X[s:e], self.W[s:e], self.Z[s:e]
+        w = None if self.weights is None else self.weights[s:e]
+        eta = X @ beta if beta.size else np.zeros(e - s)
+        inv = None
+        if zeta.size:
+            with np.errstate(over="ignore"):
+                inv = np.exp(-_combine(Z, zeta[:, None])[:, 0])
+        ends = []
+        for j in (k, k - 1):
+            if 0 <= j < m:
+                a = theta[j] - eta
+                if gamma.size:
+                    a = a - _combine(W, gamma[:, j:j + 1])[:, 0]
+                ends.append(a if inv is None else a * inv)
+            else:
+                ends.append(None)
+        t = row_terms(link, upper=ends[0], lower=ends[1], hessian=order >= 2)
+        if w is not None and np.any(w == 0):
+            t = {key: (None if v is None else np.where(w > 0, v, 0.0)) for key, v in t.items()}
+        ll = _wsum(w, t["logp"])
+        if order >= 1 and np.isfinite(ll):
+            acc.add(k, m, X, None if self._S is None else self._S[s:e], w, inv, ends, t)
+        return ll
+
+
+def _combine(A, B):
+    """``A @ B`` for a thin ``A`` (a few columns) without BLAS, whose threads can stall on a
+    busy machine for such small products."""
+    out = np.multiply.outer(A[:, 0], B[0]) if A.shape[1] else np.zeros((len(A), B.shape[1]))
+    for c in range(1, A.shape[1]):
+        out += np.multiply.outer(A[:, c], B[c])
+    return out
+
+
+def _columns(S, parts):
+    """An ``(n, k)`` Fortran array of weighted columns: ``(None, v)`` gives ``v``, ``(cols, v)``
+    gives ``S[:, cols] * v`` column by column (no broadcast temporaries)."""
+    width = sum(1 if cols is None else cols.stop - cols.start for cols, _ in parts)
+    out = np.empty((len(S), width), order="F")
+    c = 0
+    for cols, v in parts:
+        if cols is None:
+            out[:, c] = v
+            c += 1
+            continue
+        for i in range(cols.start, cols.stop):
+            np.multiply(S[:, i], v, out=out[:, c])
+            c += 1
+    return out
+
+
+def _nz(v, n):
+    return np.zeros(n) if v is None else v
+
+
+def _plus(a, b):
+    """``a + b`` where ``None`` stands for zeros."""
+    if a is None:
+        return b
+    return a if b is None else a + b
+
+
+class _Accumulator:
+    """Adds one segment's gradient and Hessian terms (chain rule through the cuts).
+
+    With ``u = (theta_k - x'beta - w'gamma_k) / sigma`` (upper end) and ``l`` the same at
+    ``k - 1``: ``du/dtheta_k = 1/sigma``, ``du/dbeta = -x/sigma``, ``du/dgamma_k = -w/sigma``,
+    ``du/dzeta = -u z`` and ``d2u/(dpsi dzeta') = -(du/dpsi) z'``.  Per segment the effect
+    block is one weighted Gram product of ``X``, the blocks between effects and the other
+    parameters one product of ``X'`` with a few columns, and all blocks among thresholds,
+    per-threshold and scale parameters one product of the small matrix ``[1, W, Z]'`` with
+    a few columns (few BLAS calls: on a busy machine each call may wait for a thread).
+    Blocks between two different groups of parameters are added once to ``C``; the
+    Hessian is ``H + C + C'``.
+    """
+
+    def __init__(self, design, g, H):
+        self.g, self.H = g, H
+        self.C = None if H is None else np.zeros_like(H)
+        m = design.n_levels - 1
+        self.m, self.p, self.q, self.r = m, design.X.shape[1], design.W.shape[1], design.Z.shape[1]
+        self.beta = slice(m, m + self.p)
+        self.zeta = slice(m + self.p + self.q * m, m + self.p + self.q * m + self.r)
+        self.sign = np.array([1.0] + [-1.0] * self.q)  # du/d(theta, gamma) = sign * [1, w] / sigma
+
+    def _dest(self, j):
+        """Parameter indices of the threshold-like columns ``[1, w]`` at cut ``j``."""
+        base = self.m + self.p
+        return np.array([j] + [base + c * self.m + j for c in range(self.q)])
+
+    def add(self, k, m, X, S, w, inv, ends, t):
+        dests = [self._dest(k) if ends[0] is not None else None, self._dest(k - 1) if ends[1] is not None else None]
+        if self.q == 0 and self.r == 0:
+            self._add_plain(k, X, w, t, dests)
+            return
+        n = len(X)
+        wt = 1.0 if w is None else w
+        gu, gl = _nz(t["gu"], n) * wt, _nz(t["gl"], n) * wt
+        self._add_extended(X, S, wt, gu, gl, t, inv, ends, dests)
+
+    def _add_plain(self, k, X, w, t, dests):
+        """Parallel model: the threshold parts are plain sums; missing ends cost nothing."""
+        g, H, C, b = self.g, self.H, self.C, self.beta
+        weigh = (lambda v: v) if w is None else (lambda v: None if v is None else v * w)  # noqa: E731
+        gu, gl = weigh(t["gu"]), weigh(t["gl"])
+        gsum = _plus(gu, gl)
+        if gu is not None:
+            g[k] += gu.sum()
+        if gl is not None:
+            g[k - 1] += gl.sum()
+        if H is None:
+            if self.p:
+                g[b] -= X.T @ gsum
+            return
+        huu, hll, hul = weigh(t["huu"]), weigh(t["hll"]), weigh(t["hul"])
+        cu, cl = _plus(huu, hul), _plus(hll, hul)
+        if self.p:
+            G = X.T @ np.column_stack([v for v in (gsum, cu, cl) if v is not None])
+            g[b] -= G[:, 0]
+            if cu is not None:
+                C[k, b] -= G[:, 1]
+            if cl is not None:
+                C[k - 1, b] -= G[:, -1]
+            H[b, b] += _weighted_gram(X, _plus(cu, cl) if hul is None else cu + cl)
+        if huu is not None:
+            H[k, k] += huu.sum()
+        if hll is not None:
+            H[k - 1, k - 1] += hll.sum()
+        if hul is not None:
+            C[k, k - 1] += hul.sum()
+
+    def _add_extended(self, X, S, wt, gu, gl, t, inv, ends, dests):
+        n = len(X)
+        vu, vl = (np.zeros(n) if e is None else e for e in ends)
+        one = np.ones(n) if inv is None else inv
+        nq = 1 + self.q
+        if self.H is None:
+            R = S.T @ _columns(S, [(None, gu * one), (None, gl * one), (None, gu * vu + gl * vl)])
+            self._gradient(R, dests, nq)
+            if self.p:
+                self.g[self.beta] -= X.T @ ((gu + gl) * one)
+            return
+        huu, hll, hul = (_nz(t[key], n) * wt for key in ("huu", "hll", "hul"))
+        one2 = one * one
+        q, z = slice(0, nq), slice(nq, nq + self.r)
+        cz = huu * vu + hll * vl + hul * (vu + vl) + gu + gl
+        R = S.T @ _columns(S, [(None, gu * one), (None, gl * one), (None, gu * vu + gl * vl),
+                               (q, huu * one2), (q, hll * one2), (q, hul * one2),
+                               (z, (huu * vu + hul * vl + gu) * one), (z, (hll * vl + hul * vu + gl) * one),
+                               (z, huu * vu * vu + hll * vl * vl + 2.0 * hul * vu * vl + gu * vu + gl * vl)])
+        self._gradient(R, dests, nq)
+        self._small_blocks(R, dests, nq)
+        if self.p:
+            G = X.T @ _columns(S, [(None, (gu + gl) * one), (q, (huu + hul) * one2), (q, (hll + hul) * one2),
+                                   (z, cz * one)])
+            self._effect_blocks(G, dests, nq)
+            self.H[self.beta, self.beta] += _weighted_gram(X, (huu + hll + 2.0 * hul) * one2)
+
+    def _gradient(self, R, dests, nq):
+        g, z = self.g, self.zeta
+        for col, dest in enumerate(dests):
+            if dest is not None:
+                g[dest] += self.sign * R[:nq, col]
+        if self.r:
+            g[z] -= R[nq:, 2]
+
+    def _small_blocks(self, R, dests, nq):
+        """Threshold / per-threshold / scale blocks from ``R = [1, W, Z]' T``."""
+        H, C, z, s = self.H, self.C, self.zeta, self.sign
+        du, dl = dests
+        ss = np.outer(s, s)
+        col = 3
+        quu, qll, qul = (R[:nq, col + i * nq: col + (i + 1) * nq] for i in range(3))
+        col += 3 * nq
+        r = self.r
+        if du is not None:
+            H[np.ix_(du, du)] += ss * quu
+        if dl is not None:
+            H[np.ix_(dl, dl)] += ss * qll
+        if du is not None and dl is not None:
+            C[np.ix_(du, dl)] += ss * qul  # rows: cut k, columns: cut k-1
+        if r:
+            zi = np.arange(z.start, z.stop)
+            for dest, block in zip(dests, (R[:nq, col:col + r], R[:nq, col + r:col + 2 * r])):
+                if dest is not None:
+                    C[np.ix_(dest, zi)] -= s[:, None] * block
+            H[z, z] += R[nq:, col + 2 * r:col + 3 * r]
+
+    def _effect_blocks(self, G, dests, nq):
+        """Blocks between the parallel effects and the other parameters from ``G = X' T``."""
+        g, C, b, z = self.g, self.C, self.beta, self.zeta
+        g[b] -= G[:, 0]
+        bi = np.arange(b.start, b.stop)
+        for i, dest in enumerate(dests):
+            if dest is not None:
+                C[dest[:, None], bi[None, :]] -= self.sign[:, None] * G[:, 1 + i * nq:1 + (i + 1) * nq].T
+        if self.r:
+            C[b, z] += G[:, 1 + 2 * nq:]
+
+
+def _weighted_gram(Xs, c):
+    """``Xs' diag(c) Xs``; as ``-(A'A)`` with ``A = Xs sqrt(-c)`` when ``c <= 0`` (log-concave
+    links), which lets BLAS use the symmetric rank-k update at half the cost."""
+    if Xs.shape[1] == 0:
+        return np.zeros((0, 0))
+    if np.all(c <= 0):
+        A = Xs * np.sqrt(-c)[:, None]
+        return -(A.T @ A)
+    return Xs.T @ (Xs * c[:, None])
