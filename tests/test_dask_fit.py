@@ -294,3 +294,16 @@ def test_progress_in_a_notebook_updates_one_display(frame, monkeypatch):
     monkeypatch.setattr(IPython.display, "display", lambda *a, **k: Handle())
     rd = ow.fit("rating ~ age", dd.from_pandas(frame, npartitions=2))  # progress="auto"
     assert len(shown) == rd.iterations + 3 and "done: converged" in shown[-1]
+
+
+def test_dask_fit_names_a_separated_level_like_the_in_memory_fit(frame):
+    # one row of a new level, in the highest category: its effect has no finite maximum
+    # (the likelihood rises monotonically along it; see tests/test_engine.py)
+    df = frame.copy()
+    df["group"] = df["group"].astype(object)
+    df.loc[0, "group"], df.loc[0, "rating"] = "z", df["rating"].max()
+    with pytest.warns(ow.SeparationWarning, match=r"\[T\.z\]"):
+        r = ow.fit(FORMULA, df)
+    with pytest.warns(ow.SeparationWarning, match=r"\[T\.z\]"):
+        rd = ow.fit(FORMULA, dd.from_pandas(df, npartitions=3))
+    assert not r.converged and not rd.converged
