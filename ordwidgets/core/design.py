@@ -64,10 +64,13 @@ def encode_response(values, levels=None, *, name="response"):
 
     Accepted: an ordered pandas Categorical (its order), integers (sorted), or any values
     with an explicit ``levels=`` order.  Unordered strings without ``levels=`` are refused:
-    alphabetical order is almost never the order of a rating scale.
+    alphabetical order is almost never the order of a rating scale.  An ordered Categorical
+    together with a ``levels=`` that is not exactly its categories in its order is refused
+    too: neither order silently wins.
     """
     s = pd.Series(values)
     if levels is not None:
+        _check_levels_agree(s, levels, name)
         levels = list(levels)
         if len(set(levels)) != len(levels):
             raise OrdinalDataError(f"levels= for {name!r} repeats a level: {levels!r}")
@@ -95,6 +98,17 @@ def encode_response(values, levels=None, *, name="response"):
         f"response {name!r} has unordered values ({s.dtype}); pass levels= in order, "
         "or use an ordered pandas Categorical"
     )
+
+
+def _check_levels_agree(s, levels, name):
+    """Refuse ``levels=`` that contradicts the order of an ordered Categorical response."""
+    if not (isinstance(s.dtype, pd.CategoricalDtype) and s.dtype.ordered):
+        return
+    own = list(s.cat.categories)
+    if own != list(levels):
+        raise OrdinalDataError(
+            f"response {name!r} is an ordered categorical with levels {own!r} but levels= gives "
+            f"{list(levels)!r}; drop levels= or reorder the column (s.cat.reorder_categories)")
 
 
 def required_columns(rhs, data):

@@ -1,7 +1,6 @@
 """The immutable result of a cumulative link fit."""
 from __future__ import annotations
 
-import html
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -9,9 +8,10 @@ import pandas as pd
 from scipy import stats
 
 from .effects import prediction_intervals, probabilities_at, wald_bounds
-from .layout import effect_groups, error_bounds_of, location_predictor, model_facts
+from .layout import error_bounds_of, location_predictor
 from .links import Link
 from .probabilities import interval_logprob
+from .summary import render_html, render_text, summary_facts, weighting_text
 
 __all__ = ["FitResult", "TrainingData", "SIGN_CONVENTION"]
 
@@ -335,90 +335,23 @@ class FitResult:
             return self.training.index
         return pd.RangeIndex(n)
 
-    # ---- display ----------------------------------------------------------------------------
+    # ---- display (see ordwidgets.core.summary) ----------------------------------------------
+    @property
+    def weighting(self) -> str:
+        """``"unweighted"`` or which weights the fit used (``"weighted by column 'count'"``)."""
+        return weighting_text(self)
+
     def facts(self) -> dict:
-        """Headline facts shown with the table (with the display sample of a Dask fit)."""
-        sample = {} if self.training is None or not self.training.is_sample else {
-            "rows shown": self.training.describe()}
-        return {
-            "link": f"{self.link.name} (latent {self.link.latent})",
-            **model_facts(self),
-            "rows": self.n_rows,
-            **sample,
-            "n (weighted)": self.n_obs,
-            "log-likelihood": self.loglik,
-            "AIC": self.aic,
-            "BIC": self.bic,
-            "converged": self.converged,
-            "Newton steps": self.iterations,
-            "largest score": self.largest_score,
-            "curvature condition": self.curvature_condition,
-        }
+        """The summary's labelled lines: link, data (rows, weighting, level counts), fit, solver."""
+        return summary_facts(self)
 
     def __str__(self) -> str:
-        head = f"Cumulative link fit: {self.formula}\n"
-        facts = "\n".join(f"  {k}: {_fmt(v)}" for k, v in self.facts().items())
-        notes = "".join(f"\n  note: {n}" for n in self.notes)
-        return f"{head}{facts}{notes}\n\n{self.table().to_string(float_format=_fmt)}\n\n{SIGN_CONVENTION}"
+        return render_text(self, SIGN_CONVENTION)
 
     def __repr__(self) -> str:
         state = "converged" if self.converged else "NOT converged"
         return f"<FitResult {self.formula!r} link={self.link.name} n={self.n_rows} loglik={self.loglik:.4f} {state}>"
 
     def _repr_html_(self) -> str:
-        return render_html(self)
+        return render_html(self, SIGN_CONVENTION)
 
-
-def _fmt(v) -> str:
-    if isinstance(v, (bool, np.bool_)):
-        return "yes" if v else "no"
-    if isinstance(v, (int, np.integer)):
-        return f"{v:,}"
-    if isinstance(v, (float, np.floating)):
-        if not np.isfinite(v):
-            return str(v)
-        return f"{v:.4g}" if (abs(v) >= 1e5 or (abs(v) < 1e-3 and v != 0)) else f"{v:.4f}"
-    return str(v)
-
-
-def render_html(res) -> str:
-    """HTML table of our own design; every data-derived string is escaped."""
-    e = html.escape
-    tab = res.table()
-    status = "converged" if res.converged else "NOT converged: " + res.message
-    colour = "#1b7f3b" if res.converged else "#b3261e"
-    facts = "".join(
-        f"<span style='margin-right:1.2em'><b>{e(k)}</b> {e(_fmt(v))}</span>" for k, v in res.facts().items()
-    )
-    head = "".join(f"<th style='text-align:right;padding:2px 8px'>{e(c)}</th>" for c in tab.columns)
-
-    def rows(names, title):
-        out = f"<tr><td colspan='{len(tab.columns) + 1}' style='font-weight:bold;padding-top:6px'>{e(title)}</td></tr>"
-        for n in names:
-            cells = "".join(f"<td style='text-align:right;padding:2px 8px'>{e(_fmt(v))}</td>" for v in tab.loc[n])
-            out += f"<tr><td style='padding:2px 8px'>{e(str(n))}</td>{cells}</tr>"
-        return out
-
-    body = rows(res.threshold_names, "Thresholds (cut points on the latent scale)")
-    scale = effect_groups(res)["scale"]
-    location = [n for n in res.coef_names if n not in scale]
-    if location:
-        body += rows(location, "Effects (positive = towards higher categories)")
-    if scale:
-        body += rows(scale, "Scale effects (positive = wider latent spread, more mass in the extremes)")
-    notes = "".join(f"<div style='color:#8a5a00'>note: {e(n)}</div>" for n in res.notes)
-    return (
-        "<div class='ow-fit-result'>"
-        f"<div style='font-weight:bold'>Cumulative link fit &middot; {e(res.formula)}</div>"
-        f"<div style='color:{colour}'>{e(status)}</div>"
-        f"<div style='font-size:90%;margin:4px 0'>{facts}</div>{notes}"
-        f"<table style='border-collapse:collapse'>{_interval_head(tab)}<tr><th></th>{head}</tr>{body}</table>"
-        f"<div style='font-size:85%;color:#555;margin-top:4px'>{e(SIGN_CONVENTION)}</div></div>"
-    )
-
-
-def _interval_head(tab, level=0.95) -> str:
-    """Header row naming the interval method over the ``wald_low`` / ``wald_high`` columns."""
-    before = list(tab.columns).index("wald_low") + 1
-    return (f"<tr><th colspan='{before}'></th><th colspan='2' style='text-align:center;padding:2px 8px;"
-            f"font-weight:normal;font-style:italic'>{level:.0%} Wald interval</th></tr>")
