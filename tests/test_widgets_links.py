@@ -1,4 +1,5 @@
 """LinkSelector: the link table equals direct fits; model controls refit through the state."""
+import re
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
@@ -59,6 +60,26 @@ def test_po_figures_beside_each_predictor(panel):
     # Brant's p and the largest probability change (the large-n caution) sit beside the LR figures.
     assert f"Brant p = {table.loc['dose', 'brant_p_value']:.3g}" in texts["dose"]
     assert f"move {100 * table.loc['dose', 'max_prob_change']:.1f} points at most" in texts["dose"]
+
+
+def test_po_figures_are_aligned_cells_with_a_verdict_word(panel):
+    table = panel.state.fit.proportional_odds_test()  # reference: the core's test table
+    html = panel._rows["dose"][3].value
+    row = table.loc["dose"]
+    # The verdict rule as documented: p >= 0.05 holds; else slight below a 2-point change, else drifts.
+    word = "holds" if row["p_value"] >= 0.05 else "slight" if row["max_prob_change"] < 0.02 else "drifts"
+    assert f">{word}</td>" in html and "<details" in html and "class='ow-po-figures'" in html
+    assert f">{row['statistic']:.4g}</td>" in html and f">{row['p_value']:.3g}</td>" in html
+    widths = [c[1] for c in ow.widgets.links._PO_COLUMNS]
+    for text in [r[3].value for r in panel._rows.values()] + [panel.po_overall.value]:
+        # every row uses the header's fixed column widths, so the figures line up
+        assert [int(x) for x in re.findall(r"width:(\d+)px", text)[:len(widths)]] == widths
+
+
+@pytest.mark.parametrize("p, change, word", [(0.2, 0.5, "holds"), (0.05, 0.5, "holds"), (0.01, 0.019, "slight"),
+                                             (0.01, 0.02, "drifts"), (0.01, np.nan, "drifts"), (np.nan, 0.1, "-")])
+def test_po_verdict_rule(p, change, word):
+    assert ow.widgets.links.po_verdict({"p_value": p, "max_prob_change": change}) == word
 
 
 def test_background_link_table_shows_busy_then_rows(data):

@@ -23,6 +23,7 @@ from .exceptions import ComparisonError, ConvergenceWarning, CrossingError
 from .layout import ExtendedDesign, all_training_rows, layout_of
 from .links import get_link, link_names
 from .optimize import newton_maximize
+from .summary import weighting_of
 
 __all__ = ["intervals", "wald_intervals", "profile_intervals", "compare", "compare_links"]
 
@@ -304,7 +305,10 @@ def compare_links(formula, data, *, link=None, weights=None, levels=None, nonpar
         ``converged``, ``n_params``, ``message``.  Sorted best first: converged fits
         before the others, then by AIC (every link has the same number of parameters, so
         this is also the order of the log-likelihood).  Convergence problems are reported
-        in the table instead of as warnings; data warnings are raised once.
+        in the table instead of as warnings; data warnings are raised once.  The column
+        index is named after the weighting (``"unweighted"`` or ``"weighted by column
+        'count'"``, also in ``table.attrs["weighting"]``), so the printed table says whether
+        the links were compared on the weighted fit.
     """
     names = link_names() if link is None else [link] if isinstance(link, str) else list(link)
     kwargs = {"weights": weights, "levels": levels, "nonparallel": nonparallel, "scale_by": scale_by,
@@ -320,4 +324,6 @@ def compare_links(formula, data, *, link=None, weights=None, levels=None, nonpar
     table = pd.DataFrame.from_dict(rows, orient="index")
     table.index.name = "link"
     key = table.assign(_bad=~table["converged"].astype(bool), _aic=table["aic"].fillna(np.inf))
-    return table.loc[key.sort_values(["_bad", "_aic"], kind="stable").index]
+    table = table.loc[key.sort_values(["_bad", "_aic"], kind="stable").index]
+    table.columns.name = table.attrs["weighting"] = weighting_of(weights)
+    return table

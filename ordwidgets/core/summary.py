@@ -12,7 +12,7 @@ import numpy as np
 
 from .layout import effect_groups, model_facts
 
-__all__ = ["weighting_text", "level_counts", "data_line", "fit_line", "solver_sentence", "summary_facts",
+__all__ = ["weighting_text", "weighting_of", "level_counts", "data_line", "fit_line", "solver_sentence", "summary_facts",
            "render_text", "render_html", "curvature_words", "fmt_value"]
 
 #: Condition numbers of the curvature ``-H`` up to which the fit is called "well conditioned",
@@ -23,7 +23,11 @@ WELL_CONDITIONED, POORLY_CONDITIONED = 1e8, 1e12
 
 def weighting_text(res) -> str:
     """``"unweighted"``, ``"weighted by column 'count'"`` or ``"weighted by a weights array"``."""
-    weights = (getattr(res, "options", None) or {}).get("weights")
+    return weighting_of((getattr(res, "options", None) or {}).get("weights"))
+
+
+def weighting_of(weights) -> str:
+    """The caption text of a ``weights=`` argument (``None``, a column name or an array)."""
     if weights is None:
         return "unweighted"
     if isinstance(weights, str):

@@ -7,13 +7,39 @@ import numpy as np
 from ..core import SIGN_CONVENTION, link_names
 from ._common import PanelBase, esc, fmt, html_table
 
-__all__ = ["LinkSelector", "po_test_rows"]
+__all__ = ["LinkSelector", "po_test_rows", "po_verdict", "po_figures_html", "SLIGHT_CHANGE"]
+
+
+#: Below this largest change in any predicted probability (when the predictor's effect is freed
+#: to differ by threshold) a significant departure from parallel effects is called "slight"
+#: (common practice, no source: two percentage points rarely changes a reading of the fit).
+SLIGHT_CHANGE = 0.02
+
+#: Columns of the per-predictor test figures: (header, width in px, tooltip).
+_PO_COLUMNS = (("verdict", 58, "holds: no evidence against one shared effect (LR p >= 0.05); slight: significant, "
+                "but freeing it moves no probability by 2 points; drifts: significant and larger"),
+               ("χ²", 58, "likelihood-ratio statistic against freeing this effect by threshold"),
+               ("df", 30, "degrees of freedom of the LR test"), ("p", 62, "LR p-value"),
+               ("Brant p", 62, "Brant (1990) Wald test p-value"),
+               ("moves", 62, "largest change of a predicted probability when the effect is freed"))
 
 
 def po_test_rows(res) -> dict:
-    """``{name: "statistic / df / p ..."}`` text from ``res.proportional_odds_test()``."""
+    """``{name: figures}`` from ``res.proportional_odds_test()`` (one dict of figures per row)."""
     table = res.proportional_odds_test()
-    return {str(name): _po_text(row) for name, row in table.iterrows()}
+    return {str(name): {k: row.get(k, np.nan) for k in ("statistic", "df", "p_value", "brant_p_value",
+                                                         "max_prob_change")}
+            for name, row in table.iterrows()}
+
+
+def po_verdict(row) -> str:
+    """``"holds"``, ``"slight"`` or ``"drifts"`` from the LR p-value and the largest change."""
+    p, change = row.get("p_value", np.nan), row.get("max_prob_change", np.nan)
+    if not np.isfinite(p):
+        return "-"
+    if p >= 0.05:
+        return "holds"
+    return "slight" if np.isfinite(change) and change < SLIGHT_CHANGE else "drifts"
 
 
 def _po_text(row) -> str:
@@ -30,6 +56,34 @@ def _po_text(row) -> str:
     if np.isfinite(change):
         text += f"; freed, probabilities move {100 * change:.1f} points at most"
     return text
+
+
+def _po_cells(row) -> list:
+    change = row.get("max_prob_change", np.nan)
+    return [po_verdict(row), fmt(row["statistic"], 4), fmt(row["df"], 3), fmt(row["p_value"], 3),
+            fmt(row.get("brant_p_value", np.nan), 3), f"{100 * change:.1f} pts" if np.isfinite(change) else "-"]
+
+
+def _po_tr(cells, term="", tag="td") -> str:
+    out = "".join(f"<{tag} title='{esc(tip)}' style='width:{px}px;padding:0 4px;text-align:right"
+                  f"{';font-weight:bold' if i == 0 and tag == 'td' else ''}'>{esc(c)}</{tag}>"
+                  for i, (c, (_, px, tip)) in enumerate(zip(cells, _PO_COLUMNS)))
+    return f"<tr>{out}<{tag} style='padding:0 4px;text-align:left'>{esc(term)}</{tag}></tr>"
+
+
+def po_figures_html(rows) -> str:
+    """Aligned figures of one or more test rows ``[(term, figures)]`` with the sentences on demand."""
+    body = "".join(_po_tr(_po_cells(r), term) for term, r in rows)
+    sentences = "<br>".join(esc(f"{term}: {_po_text(r)}" if term else _po_text(r)) for term, r in rows)
+    return (f"<table class='ow-po-figures' style='border-collapse:collapse;table-layout:fixed;font-size:90%;"
+            f"font-variant-numeric:tabular-nums'>{body}</table>"
+            f"<details style='font-size:85%;color:#555'><summary>details</summary>{sentences}</details>")
+
+
+def po_header_html() -> str:
+    """The column headers of :func:`po_figures_html` (same widths, so the figures line up)."""
+    return (f"<table style='border-collapse:collapse;table-layout:fixed;font-size:80%;color:#555'>"
+            f"{_po_tr([c[0] for c in _PO_COLUMNS], tag='th')}</table>")
 
 
 class LinkSelector(PanelBase):
@@ -61,7 +115,8 @@ class LinkSelector(PanelBase):
         self._rows, self._po = {}, {}
         self.children = [w.HTML("<b>Link and model</b>"), self.dropdown, self.table,
                          w.HTML("<b>Predictors</b> (in model &middot; non-parallel &middot; scale effect "
-                                "&middot; proportional-odds test)"), self.controls, self.po_overall,
+                                "&middot; proportional-odds test)"),
+                         w.HTML(po_header_html(), layout=w.Layout(margin="0 0 0 16px")), self.controls, self.po_overall,
                          self.message, self.effects]
         self.redraw_all()
 
@@ -155,16 +210,20 @@ class LinkSelector(PanelBase):
             self.state.nonparallel, self.state.scale_by = pick["nonparallel"], pick["scale_by"]
 
     def _update_po(self):
-        overall = self._po.get("(overall)")
-        self.po_overall.value = f"all predictors together: {esc(overall)}" if overall else ""
+        failed, overall = self._po.get(""), self._po.get("(overall)")
+        if failed:  # the test itself failed
+            self.po_overall.value = f"<span style='color:#b3261e'>{esc(failed)}</span>"
+        else:
+            self.po_overall.value = "all predictors together" + po_figures_html([("", overall)]) if overall else ""
         for name, (*_, text) in self._rows.items():
             if name in self.state.dropped:
                 text.value = "<i>out of the model</i>"
             else:
-                text.value = esc(self._match_po(name)) if self._po else "<i>testing...</i>"
+                text.value = self._match_po(name) if self._po else "<i>testing...</i>"
 
     def _match_po(self, name):
-        if name in self._po:
-            return self._po[name]
-        hits = [f"{k}: {v}" for k, v in self._po.items() if k.startswith((f"C({name})", f"{name}["))]
-        return "; ".join(hits) if hits else "-"
+        if name in self._po and isinstance(self._po[name], dict):
+            return po_figures_html([("", self._po[name])])
+        hits = [(k, v) for k, v in self._po.items()
+                if isinstance(v, dict) and k.startswith((f"C({name})", f"{name}["))]
+        return po_figures_html(hits) if hits else "-"
