@@ -14,8 +14,10 @@ import bqplot as bq
 import ipywidgets as w
 import numpy as np
 
-__all__ = ["PanelBase", "esc", "category_colours", "make_figure", "figure_toolbar", "html_table",
-           "fmt", "rule_xy", "is_echo"]
+from ..core.summary import weighting_text
+
+__all__ = ["PanelBase", "esc", "category_colours", "heading_html", "make_figure", "figure_toolbar", "html_table",
+           "fmt", "rule_xy", "is_echo", "nice_ticks"]
 
 
 def esc(value) -> str:
@@ -50,6 +52,12 @@ def level_legend(levels, colours) -> str:
         for c, lv in zip(colours, levels))
 
 
+def heading_html(title, res) -> str:
+    """A panel heading: the title in bold, then whether and by which column the fit is weighted."""
+    return (f"<b>{esc(title)}</b> <span class='ow-weighting' style='font-size:85%;color:#555'>"
+            f"&middot; fit {esc(weighting_text(res))}</span>")
+
+
 def make_figure(marks, axes, css, title="", height="300px", **kwargs):
     """A bqplot figure with an explicit layout and our CSS class."""
     fig = bq.Figure(marks=marks, axes=axes, title=title, animation_duration=0,
@@ -77,6 +85,19 @@ def html_table(columns, rows, css="") -> str:
         "<tr>" + "".join(f"<td style='padding:1px 6px;text-align:right'>{esc(v)}</td>" for v in row) + "</tr>"
         for row in rows)
     return f"<table class='{esc(css)}' style='border-collapse:collapse;font-size:90%'><tr>{head}</tr>{body}</table>"
+
+
+def nice_ticks(lo, hi, count=6) -> np.ndarray:
+    """At most ``count`` round tick values in ``[lo, hi]``: the finest step 1, 2, 2.5 or 5 times a
+    power of ten that gives no more than ``count`` ticks."""
+    lo, hi = float(lo), float(hi)
+    if not (np.isfinite(lo) and np.isfinite(hi)) or hi <= lo:
+        return np.array([lo]) if np.isfinite(lo) else np.array([])
+    e = int(np.floor(np.log10((hi - lo) / count)))
+    steps = [m * 10.0 ** p for p in (e, e + 1, e + 2) for m in (1, 2, 2.5, 5)]
+    step = next(s for s in steps if np.floor(hi / s) - np.ceil(lo / s) + 1 <= count)
+    ticks = np.arange(np.ceil(lo / step), np.floor(hi / step) + 1) * step
+    return np.round(ticks, 12) + 0.0  # no -0.0 labels
 
 
 def is_echo(slider, new, current) -> bool:
@@ -130,6 +151,25 @@ class PanelBase(w.VBox):
             names += [n for n in self._dispatch.get(kind, ()) if n not in names]
         for name in names:
             getattr(self, name)()
+        self._update_heading()
+
+    def make_heading(self):
+        """The panel's heading widget (``ow-panel-heading``), kept up to date on every update."""
+        self.heading = self.own(w.HTML())
+        self.heading.add_class("ow-panel-heading")
+        self._update_heading()
+        return self.heading
+
+    def title(self) -> str:
+        """The heading's title (panels override it)."""
+        return ""
+
+    def _update_heading(self):
+        heading = getattr(self, "heading", None)
+        if heading is not None:
+            value = heading_html(self.title(), self.state.fit)
+            if heading.value != value:
+                heading.value = value
 
     def redraw_all(self):
         """Run every ``_update_*`` method once (used at construction)."""

@@ -42,8 +42,7 @@ class Dashboard(w.VBox):
         self.panels = [self.threshold_panel, self.link_selector, self.explorer, self.residual_panel]
         grid = w.GridBox(self.panels, layout=w.Layout(grid_template_columns="repeat(2, minmax(0, 1fr))",
                                                        grid_gap="12px 18px"))
-        footer = w.HTML(f"<div style='font-size:85%;color:#555'>{esc(CAUTION)}</div>")
-        self.children = [self.header, w.HBox([self.status, self.busy]), grid, footer]
+        self.children = [self.header, w.HBox([self.status, self.busy]), grid]
         state.observe(self._update_header, names="updates")
         state.observe(self._update_busy, names="busy")
         self._update_header()
@@ -56,9 +55,10 @@ class Dashboard(w.VBox):
         self.header.value = (
             f"<div style='font-size:115%'><b>Cumulative link model</b> &middot; {esc(st.model_formula)} "
             f"&middot; link <b>{esc(res.link.name)}</b> ({esc(res.link.latent)} latent error) &middot; "
-            f"n = {res.n_rows:,} rows{units_text(res)}{shown}{edited}</div>"
+            f"n = {res.n_rows:,} rows, {esc(res.weighting)}{units_text(res)}{shown}{edited}</div>"
             f"<div style='font-size:90%'>{esc(SIGN_CONVENTION)}</div>"
-            f"<div style='font-size:90%;color:#8a5a00'>{esc(CAUTION)}</div>")
+            f"<div class='ow-caution' style='font-size:95%;color:#6b4500;background:#fff4dc;"
+            f"border-left:4px solid #d08a00;padding:4px 8px;margin:4px 0'>{esc(CAUTION)}</div>")
         self.status.value = f"<span style='color:#777;font-size:85%'>updates: {st.updates}</span>"
 
     def _update_busy(self, change=None):

@@ -75,10 +75,16 @@ class ProbabilityExplorer(PanelBase):
         self.caution = self.own(w.HTML())
         self.caution.add_class("ow-scenario-note")
         self._build_figure()
-        self.children = [w.HTML("<b>Category probabilities</b>"), w.HBox([self.focus_dropdown, self.view]),
+        self.children = [self.make_heading(), w.HBox([self.focus_dropdown, self.view]),
                          self.figure, self.legend, figure_toolbar(self.figure, "probabilities"), self.note, self.caution,
                          w.HBox([self.target, self.copy_button]), self.editor_box, self.whatif]
         self.redraw_all()
+
+    def title(self) -> str:
+        """``"Chances of each grade along diameter"``: the outcome's and the focus's own names."""
+        st = self.state
+        along = f" along {st.focus}" if st.focus else ""
+        return f"Chances of each {st.fit.response}{along}"
 
     def _build_figure(self):
         self.xs, ys = bq.LinearScale(), bq.LinearScale(min=0.0, max=1.0)

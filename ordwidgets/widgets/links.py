@@ -113,12 +113,15 @@ class LinkSelector(PanelBase):
         self.message, self.po_overall, self.effects = self.own(w.HTML(), w.HTML(), w.HTML())
         self.effects.add_class("ow-effects-table")
         self._rows, self._po = {}, {}
-        self.children = [w.HTML("<b>Link and model</b>"), self.dropdown, self.table,
+        self.children = [self.make_heading(), self.dropdown, self.table,
                          w.HTML("<b>Predictors</b> (in model &middot; non-parallel &middot; scale effect "
                                 "&middot; proportional-odds test)"),
                          w.HTML(po_header_html(), layout=w.Layout(margin="0 0 0 16px")), self.controls, self.po_overall,
                          self.message, self.effects]
         self.redraw_all()
+
+    def title(self) -> str:
+        return "Link and model"
 
     # ---- link -----------------------------------------------------------------------------------
     def _link_chosen(self, change):
@@ -149,7 +152,9 @@ class LinkSelector(PanelBase):
             return
         cells = [[("\u25b6 " if r["link"] == self.state.link else "") + r["link"], fmt(r.get("loglik"), 8),
                   fmt(r.get("aic"), 8), fmt(r.get("bic"), 8), r.get("error", "")[:80]] for r in rows]
-        self.table.value = html_table(["link", "loglik", "AIC", "BIC", "note"], cells) + self._sample_note()
+        self.table.value = (html_table(["link", "loglik", "AIC", "BIC", "note"], cells)
+                            + f"<div style='font-size:85%;color:#555'>every link fitted "
+                              f"{esc(self.state.fit.weighting)}</div>" + self._sample_note())
 
     def _sample_note(self):
         res = self.state.fit
@@ -162,7 +167,8 @@ class LinkSelector(PanelBase):
         table = self.state.fit.table()
         rows = [[name, fmt(r["estimate"], 4), fmt(r["std_error"], 3), fmt(r["p_value"], 3)]
                 for name, r in table.loc[list(self.state.fit.coef_names)].iterrows()]
-        self.effects.value = ("<b>Effects</b> (positive = towards higher categories)"
+        self.effects.value = (f"<b>Effects</b> (positive = towards higher categories; fit "
+                              f"{esc(self.state.fit.weighting)})"
                               + html_table(["effect", "estimate", "SE", "p-value"], rows)
                               + f"<div style='font-size:85%;color:#555'>{esc(SIGN_CONVENTION)}</div>")
 

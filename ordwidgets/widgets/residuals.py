@@ -10,7 +10,7 @@ import pandas as pd
 
 from .._spec import grid_values
 from ..state import n_training
-from ._common import PanelBase, esc, figure_toolbar, fmt, html_table, make_figure
+from ._common import PanelBase, esc, figure_toolbar, fmt, html_table, make_figure, nice_ticks
 
 __all__ = ["ResidualPanel", "ResidualView", "residual_view", "MAX_POINTS", "residual_tools"]
 
@@ -103,13 +103,16 @@ class ResidualPanel(PanelBase):
         self.table.add_class("ow-selection-table")
         self._build_scatter()
         self._build_qq()
-        self.children = [w.HTML("<b>Surrogate residuals</b>"), w.HBox([self.x_choice, self.draws, self.seed]),
+        self.children = [self.make_heading(), w.HBox([self.x_choice, self.draws, self.seed]),
                          self.count, w.HBox([w.VBox([self.figure, figure_toolbar(self.figure, "residuals")],
                                                     layout=w.Layout(width="60%")),
                                              w.VBox([self.qq_figure, figure_toolbar(self.qq_figure, "qq")],
                                                     layout=w.Layout(width="40%"))]),
                          self.summary, self.table]
         self.redraw_all()
+
+    def title(self) -> str:
+        return "Surrogate residuals"
 
     def _build_scatter(self):
         xs, ys = bq.LinearScale(), bq.LinearScale()
@@ -215,7 +218,8 @@ class ResidualPanel(PanelBase):
             ends = [float(qq["theoretical"].min()), float(qq["theoretical"].max())]
             self.qq_line.x, self.qq_line.y = ends, ends
             self.x_axis.label = str(self.x_choice.value)
-            self.x_axis.tick_values = np.array(list(ticks)) if ticks else None
+            # few round ticks on a number axis: the labels stay apart at 60% of a panel's width
+            self.x_axis.tick_values = np.array(list(ticks)) if ticks else nice_ticks(np.min(view.x), np.max(view.x))
             self.x_axis.tick_labels = ticks
         self._update_summary(view)
 

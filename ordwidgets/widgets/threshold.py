@@ -51,7 +51,7 @@ class ThresholdPanel(PanelBase):
         self.legend, self.note, self.message, self.refusal = self.own(w.HTML(), w.HTML(), w.HTML(), w.HTML())
         self.message.add_class("ow-threshold-message")
         self.refusal.add_class("ow-crossing-note")
-        self.children = [w.HTML("<b>Thresholds on the latent scale</b>"), self.figure,
+        self.children = [self.make_heading(), self.figure,
                          figure_toolbar(self.figure, "latent"), self.legend, self.note, self.refusal,
                          self.slider_box, self.message,
                          w.HBox([self.reset_button, self.readout])]
@@ -73,6 +73,9 @@ class ThresholdPanel(PanelBase):
                                            "ow-density-figure"))
         self.own(self.curve, self.regions, self.rules, self.labels, self.xs, ys, yr)
 
+    def title(self) -> str:
+        return "Thresholds on the latent scale"
+
     # ---- updates ---------------------------------------------------------------------------------
     def _update_range(self):
         lo, hi = latent_range(self.state.fit)
@@ -81,6 +84,7 @@ class ThresholdPanel(PanelBase):
         colours = category_colours(len(self.state.fit.levels))
         self.regions.colors, self.regions.fill_colors = colours, colours
         self.regions.fill_opacities = [0.5] * len(colours)
+        self.labels.colors = colours  # each probability in the colour of the region it labels
         extended = not self.state.fit.layout.is_parallel
         self.note.value = ("<i>non-parallel or scale effects: the rules are the cut points at this scenario; "
                            "the sliders move the base thresholds</i>" if extended else "")

@@ -108,3 +108,29 @@ def test_model_controls_refit_with_a_scale_effect(tour):
                            arg=".ow-link-selector", timeout=60_000)
     wait_paths_change(page, ".ow-residual-figure path.line", before)
     assert tour.page_errors == [] and tour.console_errors == []
+
+
+_TICK_BOXES = """sel => {
+    const axis = document.querySelector(sel);  // the first axis of a figure is its x axis
+    return Array.from(axis.querySelectorAll('g.tick text')).filter(t => t.textContent.trim())
+        .map(t => { const r = t.getBoundingClientRect(); return [r.left, r.right]; });
+}"""
+
+_LABEL_FILLS = """sel => Array.from(document.querySelectorAll(sel))
+    .filter(t => t.textContent.includes('%')).map(t => getComputedStyle(t).fill)"""
+
+
+def test_screen_polish_shows_in_the_browser(tour):
+    page = tour.page
+    wait_settled(page)
+    # residual x tick labels stand apart at the default width (1280 px page, two panels a row)
+    boxes = page.evaluate(_TICK_BOXES, ".ow-residual-figure g.axis")
+    assert len(boxes) >= 3
+    assert all(a[1] <= b[0] for a, b in zip(boxes, boxes[1:])), boxes
+    # the probability labels over the density are drawn in the colours of the four regions
+    fills = page.evaluate(_LABEL_FILLS, ".ow-threshold-panel .ow-density-figure text.label")
+    assert fills == ["rgb(49, 95, 155)", "rgb(143, 195, 176)", "rgb(242, 212, 122)", "rgb(200, 75, 49)"], fills
+    # the caution is on the page once, in its box
+    assert page.locator(".ow-dashboard .ow-caution").count() == 1
+    assert page.locator(".ow-dashboard .ow-caution").is_visible()
+    assert page.inner_text(".ow-dashboard").count("associations, not causes") == 1
