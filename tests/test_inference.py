@@ -166,6 +166,19 @@ def test_compare_links_ranks_by_aic_with_the_fits_loglik():
     assert list(sub["n_params"]) == [2 + 2 + 1, 2 + 2 + 1]  # two cuts, x at each cut, v
 
 
+def test_compare_links_says_whether_the_fits_are_weighted():
+    # An aggregated, balanced table: each (grade, group) once, with a count column.  Unweighted,
+    # every group shows each grade once, so every link has the closed-form maximum 6 log(1/3)
+    # (thresholds at the cumulative thirds, no effect); weighted, the links differ.
+    table = pd.DataFrame({"grade": [1, 1, 2, 2, 3, 3], "grp": ["a", "b"] * 3, "count": [10, 30, 20, 20, 30, 10]})
+    plain = ow.compare_links("grade ~ grp", table)
+    np.testing.assert_allclose(plain["loglik"], 6 * np.log(1 / 3), rtol=1e-12)
+    assert plain.columns.name == plain.attrs["weighting"] == "unweighted" and "unweighted" in str(plain)
+    weighted = ow.compare_links("grade ~ grp", table, weights="count")
+    assert weighted.columns.name == "weighted by column 'count'" and "weighted by column 'count'" in str(weighted)
+    assert weighted["loglik"].max() - weighted["loglik"].min() > 0.1
+
+
 def test_bad_levels_and_methods_are_refused():
     df, _, _ = small_data(n=60, seed=7)
     res = ow.fit("y ~ x", df)
