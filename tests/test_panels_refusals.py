@@ -212,7 +212,7 @@ def test_superseded_proportional_odds_jobs_do_not_pile_up(data, monkeypatch):
     # the first job (already running) and the last one ran; the three in between never started
     assert len(started) <= 3 and started[-1] is st.fit
     table = st.fit.proportional_odds_test()  # reference: the core's tests of the current fit
-    assert f"{table.loc['dose', 'statistic']:.4g}" in p._po["dose"]
+    assert f"{table.loc['dose', 'statistic']:.4g}" in p._rows["dose"][3].value  # the figures shown beside dose
     assert st.busy == ""
     p.close()
     st.close()
