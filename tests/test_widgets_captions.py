@@ -82,6 +82,8 @@ def test_residual_axis_has_few_round_ticks_inside_the_data(make_panel):
     mantissa = step[0] / 10 ** np.floor(np.log10(step[0]))
     assert min(abs(mantissa - m) for m in (1, 2, 2.5, 5)) < 1e-9  # a 1-2-2.5-5 step
     assert np.allclose(ticks / step[0], np.round(ticks / step[0]))  # ticks are multiples of the step
+    qq = np.asarray(panel.qq_axis.tick_values)
+    assert 2 <= len(qq) <= 5 and np.asarray(panel.qq.x).min() <= qq.min() <= qq.max() <= np.asarray(panel.qq.x).max()
 
 
 @pytest.mark.parametrize("lo, hi", [(-1.37, 1.62), (0.0, 1.0), (20.3, 69.9), (-1e-3, 4e-3), (5.0, 5.0)])

@@ -111,6 +111,7 @@ class LinkSelector(PanelBase):
         self.controls = self.own(w.VBox())
         self.controls.add_class("ow-model-controls")
         self.message, self.po_overall, self.effects = self.own(w.HTML(), w.HTML(), w.HTML())
+        self.po_overall.layout.margin = "0 0 0 16px"  # under the same column headers as the predictors
         self.effects.add_class("ow-effects-table")
         self._rows, self._po = {}, {}
         self.children = [self.make_heading(), self.dropdown, self.table,

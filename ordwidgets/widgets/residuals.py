@@ -217,6 +217,7 @@ class ResidualPanel(PanelBase):
             self.qq.x, self.qq.y = qq["theoretical"].to_numpy(), qq["sample"].to_numpy()
             ends = [float(qq["theoretical"].min()), float(qq["theoretical"].max())]
             self.qq_line.x, self.qq_line.y = ends, ends
+            self.qq_axis.tick_values = nice_ticks(*ends, count=5)  # the QQ plot is narrower still
             self.x_axis.label = str(self.x_choice.value)
             # few round ticks on a number axis: the labels stay apart at 60% of a panel's width
             self.x_axis.tick_values = np.array(list(ticks)) if ticks else nice_ticks(np.min(view.x), np.max(view.x))

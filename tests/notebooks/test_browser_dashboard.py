@@ -127,6 +127,8 @@ def test_screen_polish_shows_in_the_browser(tour):
     boxes = page.evaluate(_TICK_BOXES, ".ow-residual-figure g.axis")
     assert len(boxes) >= 3
     assert all(a[1] <= b[0] for a, b in zip(boxes, boxes[1:])), boxes
+    qq = page.evaluate(_TICK_BOXES, ".ow-qq-figure g.axis")  # the narrower QQ plot beside it too
+    assert len(qq) >= 2 and all(a[1] <= b[0] for a, b in zip(qq, qq[1:])), qq
     # the probability labels over the density are drawn in the colours of the four regions
     fills = page.evaluate(_LABEL_FILLS, ".ow-threshold-panel .ow-density-figure text.label")
     assert fills == ["rgb(49, 95, 155)", "rgb(143, 195, 176)", "rgb(242, 212, 122)", "rgb(200, 75, 49)"], fills
