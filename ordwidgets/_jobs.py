@@ -10,7 +10,9 @@ runs inline, or on a thread pool when the runner has one.  The lifecycle is expl
 * ``done`` is called only while the job is still wanted (its ``wanted()`` check, for example
   "the fit has not changed", passes at the end).
 * :meth:`JobRunner.close` cancels queued jobs, drops the results of running ones, waits for
-  the threads to end and clears the busy labels.  Work submitted afterwards runs inline, so
+  the threads to end, clears the busy labels and calls each dropped job's ``stopped``
+  callback, so that whoever waited for an answer can say there will be none (or compute it
+  inline).  Work submitted afterwards runs inline, so
   a closed state keeps working (slower, never stuck); so does work submitted to a pool that
   someone else shut down.
 """
@@ -43,6 +45,7 @@ class JobRunner:
         self._lock = threading.RLock()
         self._idle = threading.Condition(self._lock)
         self._labels, self._latest, self._futures, self._open = [], {}, {}, 0
+        self._stopped = {}
         self._tickets = itertools.count()
 
     @property
@@ -61,7 +64,7 @@ class JobRunner:
             self.executor = ThreadPoolExecutor(max_workers=n, thread_name_prefix=THREAD_PREFIX)
         return self
 
-    def submit(self, kind, label, work, done, *, wanted=None):
+    def submit(self, kind, label, work, done, *, wanted=None, stopped=None):
         """Run ``work()`` then ``done(result)``; an exception raised by ``work`` is the result.
 
         Parameters
@@ -72,11 +75,14 @@ class JobRunner:
             Shown in the busy labels while the job runs.
         wanted : callable, optional
             Checked when the job ends; ``done`` is skipped when it returns false.
+        stopped : callable, optional
+            Called (with no argument) if :meth:`close` drops this job before ``done`` ran.
         """
         with self._lock:
             ticket = next(self._tickets)
             key = ("job", ticket) if kind is None else kind
             self._latest[key] = ticket
+            self._stopped[key] = stopped
             old = self._futures.pop(key, None)
             self._open += 1
             self._add_label(label)
@@ -91,6 +97,7 @@ class JobRunner:
                 if current:
                     self._latest.pop(key, None)
                     self._futures.pop(key, None)
+                    self._stopped.pop(key, None)
             try:
                 if ran and current and check():
                     done(result)
@@ -128,8 +135,10 @@ class JobRunner:
         with self._lock:
             executor, self.executor = self.executor, None
             futures = list(self._futures.values())
+            stopped = [f for f in self._stopped.values() if f is not None]
             self._latest.clear()
             self._futures.clear()
+            self._stopped.clear()
         for future in futures:
             future.cancel()
         if executor is not None:
@@ -137,6 +146,8 @@ class JobRunner:
         with self._lock:
             self._labels = []
             self._on_busy("")
+        for callback in stopped:
+            callback()
 
     def _add_label(self, label):
         self._labels.append(label)

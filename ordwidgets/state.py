@@ -466,13 +466,13 @@ class FitState(tl.HasTraits):
     def executor(self, value):
         self.jobs.executor = value
 
-    def run_long(self, label, work, done, *, kind=None, wanted=None):
+    def run_long(self, label, work, done, *, kind=None, wanted=None, stopped=None):
         """Run ``work()`` then ``done(result)``: inline without an executor, else in it.
 
         An exception raised by ``work`` is passed to ``done`` as the result.  ``busy`` holds
         ``label`` meanwhile.  A newer job of the same ``kind`` supersedes this one.  ``done``
         is skipped when ``wanted()`` is false at the end (default: the fit has changed since),
-        and after :meth:`close`.
+        and after :meth:`close`, which calls ``stopped()`` instead (if given and still wanted).
         """
         fit_then = self.fit
         wanted = wanted or (lambda: self.fit is fit_then)
@@ -481,7 +481,12 @@ class FitState(tl.HasTraits):
             with self._lock:
                 done(result)
 
-        self.jobs.submit(kind, label, work, finish, wanted=wanted)
+        def halt():
+            if stopped is not None and wanted():
+                with self._lock:
+                    stopped()
+
+        self.jobs.submit(kind, label, work, finish, wanted=wanted, stopped=halt)
 
     def run_inline(self, label, work):
         """Run ``work()`` now with ``busy`` showing ``label`` (the frontend sees it at once)."""
@@ -523,7 +528,12 @@ class FitState(tl.HasTraits):
         spec = dict(formula=self.model_formula, data=self.data, options=dict(self.options),
                     extra=_spec.model_kwargs(self.nonparallel, self.scale_by, self.included))
         self.run_long("comparing links", lambda: _spec.link_rows(**spec), self._set_link_table,
-                      kind="link_table", wanted=lambda: self._spec_key() == key)
+                      kind="link_table", wanted=lambda: self._spec_key() == key, stopped=self._link_table_stopped)
+
+    def _link_table_stopped(self):
+        self._table_key = None  # the next request computes it again
+        self.link_table = [{"link": "", "error": "the link comparison was stopped by close(); it runs again "
+                                                  "on the next change of the model"}]
 
     def _set_link_table(self, rows):
         self.link_table = rows if isinstance(rows, list) else [{"link": "", "error": str(rows)}]
@@ -563,8 +573,6 @@ class FitState(tl.HasTraits):
         ``busy`` is cleared.  The state stays usable; later long work runs inline.
         """
         self.jobs.close()
-        if not self.link_table:  # the comparison was cancelled: ask again on the next request
-            self._table_key = None
 
 
 class ThresholdEditError(OrdinalDataError, tl.TraitError):

@@ -164,6 +164,28 @@ def test_state_close_with_a_dashboard_attached(data):
     d.close()
 
 
+def test_close_during_background_work_leaves_nothing_stale(data, monkeypatch):
+    """Jobs dropped by close() answer anyway: residuals inline, the tables with a message."""
+    gate = threading.Event()
+
+    def in_worker():
+        return threading.current_thread().name.startswith(THREAD_PREFIX)
+
+    real_rows = ow._spec.link_rows
+    monkeypatch.setattr(ow._spec, "link_rows", lambda **kw: (gate.wait(3) if in_worker() else True) and real_rows(**kw))
+    d = ow.dashboard(ow.fit(FORMULA, data), data=data, background=True)
+    st, rp = d.state, d.residual_panel
+    real_tools = rp.tools
+    rp.tools = lambda *a, **k: (gate.wait(3) if in_worker() else True) and real_tools(*a, **k)
+    st.set_threshold(1, st.theta[1] + 0.3)  # the residual refresh now waits in a thread
+    st.close()  # drops it (and the link comparison, still waiting)
+    check_residual_panel(rp)  # redrawn inline at the edited thresholds, not left stale
+    assert "stopped by close()" in d.link_selector.table.value and st.busy == ""
+    st.link = "probit"  # runs the comparison again, inline
+    assert len(st.link_table) == 5 and "stopped" not in d.link_selector.table.value
+    d.close()
+
+
 def check_all_panels(d):
     check_threshold_panel(d.threshold_panel)
     check_explorer(d.explorer)

@@ -72,13 +72,13 @@ class Dashboard(w.VBox):
         fit) stops them here: queued work is cancelled, ``busy`` clears and the state runs
         later long work inline.  Threads of an executor the caller supplied are the caller's.
         """
-        if getattr(self, "owns_threads", False):
-            self.state.close()
         for name, handler in (("updates", self._update_header), ("busy", self._update_busy)):
             with contextlib.suppress(ValueError):
                 self.state.unobserve(handler, names=name)
         for panel in getattr(self, "panels", ()):
             panel.close()
+        if getattr(self, "owns_threads", False):
+            self.state.close()
         super().close()
 
 

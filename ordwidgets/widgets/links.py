@@ -139,7 +139,8 @@ class LinkSelector(PanelBase):
         self._po = {}
         self.state.run_long("testing proportional odds", lambda res=self.state.fit: po_test_rows(res),
                             self._set_po, kind=("proportional odds", id(self)),
-                            wanted=lambda fit=self.state.fit: self.state.fit is fit and not self.closed)
+                            wanted=lambda fit=self.state.fit: self.state.fit is fit and not self.closed,
+                            stopped=lambda: self._set_po({"": "not run: long work was stopped by close()"}))
         self._update_table()
 
     def _set_po(self, rows):

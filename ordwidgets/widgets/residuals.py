@@ -167,7 +167,8 @@ class ResidualPanel(PanelBase):
             return
         fit_then = st.fit
         st.run_long("updating residuals", lambda: residual_view(self.tools, *args), self._draw_result,
-                    kind=("residuals", id(self)), wanted=lambda: st.fit is fit_then and not self.closed)
+                    kind=("residuals", id(self)), wanted=lambda: st.fit is fit_then and not self.closed,
+                    stopped=lambda: self._draw(residual_view(self.tools, *args)))  # never left stale
 
     def _draw_result(self, view):
         if isinstance(view, ResidualView):
