@@ -542,6 +542,15 @@ class FitState(tl.HasTraits):
         return (id(self.data), self.model_formula, repr(sorted(self.options.items())), self.nonparallel, self.scale_by)
 
     # ---- files -------------------------------------------------------------------------------------------
+    def figure(self, name, **options):
+        """Static matplotlib picture of one panel: "explorer", "thresholds", "residuals", "links".
+
+        See :func:`ordwidgets.figures.state_figure`; drawn from the panel's own marks, no browser.
+        """
+        from .figures import state_figure
+
+        return state_figure(self, name, **options)
+
     def to_dict(self) -> dict:
         """Plain JSON-able description of the spec and the edits (no data)."""
         from ._statefile import state_to_dict

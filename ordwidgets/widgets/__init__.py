@@ -34,6 +34,8 @@ CSS classes (``add_class``) are stable hooks for browser tests and styling:
 ``ow-qq-figure``            QQ plot against the link distribution
 ``ow-selection-table``      the brushed rows
 ``ow-save-toolbar``         PNG / SVG buttons under each figure
+``ow-save-report``          the dashboard's "save report" button
+``ow-report-link``          where the report was saved, with a download link
 ==========================  ==========================================================
 """
 from .dashboard import CAUTION, Dashboard, dashboard

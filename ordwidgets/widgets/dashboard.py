@@ -1,6 +1,7 @@
 """``dashboard``: the four panels around one state, with header, status and busy indicator."""
 from __future__ import annotations
 
+import base64
 import contextlib
 import ipywidgets as w
 import numpy as np
@@ -42,11 +43,30 @@ class Dashboard(w.VBox):
         self.panels = [self.threshold_panel, self.link_selector, self.explorer, self.residual_panel]
         grid = w.GridBox(self.panels, layout=w.Layout(grid_template_columns="repeat(2, minmax(0, 1fr))",
                                                        grid_gap="12px 18px"))
-        self.children = [self.header, w.HBox([self.status, self.busy]), grid]
+        self.children = [self.header, w.HBox([self.status, self.busy]), grid, self._report_bar()]
         state.observe(self._update_header, names="updates")
         state.observe(self._update_busy, names="busy")
         self._update_header()
         self._update_busy()
+
+    def _report_bar(self):
+        self.report_path = "model-report.html"
+        self.report_button = w.Button(description="save report", icon="file", layout=w.Layout(width="auto"))
+        self.report_button.add_class("ow-save-report")
+        self.report_link = w.HTML()
+        self.report_link.add_class("ow-report-link")
+        self.report_button.on_click(lambda _: self.save_report())
+        return w.HBox([self.report_button, self.report_link])
+
+    def save_report(self, path=None):
+        """Write :func:`ordwidgets.write_report` of the state to ``path`` and offer it for download."""
+        from ..report import write_report
+
+        target = self.state.run_inline("writing the report", lambda: write_report(self.state, path or self.report_path))
+        data = base64.b64encode(target.read_bytes()).decode("ascii")
+        self.report_link.value = (f"saved <code>{esc(target)}</code> &middot; <a download='{esc(target.name)}' "
+                                  f"href='data:text/html;base64,{data}'>download</a>")
+        return target
 
     def _update_header(self, change=None):
         st, res = self.state, self.state.fit

@@ -41,6 +41,15 @@ def _num(value):
     return f"{value:+.3f}" if np.isfinite(value) else "-"
 
 
+def _interval_cells(diff, n):
+    """"low to high" of each level's difference (percent) and of the expected score; "-" without."""
+    if diff is None:
+        return ["-"] * n
+    low, high = diff["low"].to_numpy(), diff["high"].to_numpy()
+    cells = [f"{_pct(a, '+')} to {_pct(b, '+')}" for a, b in zip(low[:-1], high[:-1])]
+    return cells + [f"{_num(low[-1])} to {_num(high[-1])}"]
+
+
 class ProbabilityExplorer(PanelBase):
     """Probabilities of every category across the focus predictor's observed range.
 
@@ -258,6 +267,23 @@ class ProbabilityExplorer(PanelBase):
         st = self.state
         return np.vstack([st.probabilities(st.scenario_frame(which)) for which in ("baseline", "scenario")])
 
+    def whatif_intervals(self):
+        """Scenario - baseline with 95% delta-method intervals (core), or None when thresholds are edited."""
+        st = self.state
+        if st.edited:
+            return None
+        try:
+            return st.fit.probability_difference(st.scenario_frame("scenario"), st.scenario_frame("baseline"))
+        except Exception:  # noqa: BLE001 - the table then shows no interval, never breaks the panel
+            return None
+
+    def _with_intervals(self, rows, refused):
+        """The rows with a "95% interval" cell each, and the note saying where the intervals hold."""
+        diff = None if refused else self.whatif_intervals()
+        note = " Intervals: 95% delta method, at the fitted thresholds only." if diff is not None else \
+            " No intervals while the thresholds are edited." if self.state.edited else ""
+        return [row + [c] for row, c in zip(rows, _interval_cells(diff, len(rows)))], note
+
     def _update_whatif(self):
         probs = self.whatif_probabilities()
         rows = [[lv, _pct(b), _pct(s), _pct(s - b, "+")] for lv, b, s in zip(self.state.fit.levels, *probs)]
@@ -271,7 +297,8 @@ class ProbabilityExplorer(PanelBase):
         refusal = "".join(f"<div style='color:#b3261e'>no probabilities for the {esc(which)}: its cumulative "
                           f"probabilities cross ({esc(why)}); the model gives none there (shown as -)</div>"
                           for which, why in zip(refused, crossed))
+        rows, note = self._with_intervals(rows, refused)
         self.whatif.value = (f"<b>What if</b> (scenario: {esc(what)})" + refusal
-                             + html_table(["level", "baseline", "scenario", "difference"], rows)
+                             + html_table(["level", "baseline", "scenario", "difference", "95% interval"], rows)
                              + "<div style='font-size:85%;color:#555'>Differences are associations, not "
-                               "effects of changing a person's values.</div>")
+                               f"effects of changing a person's values.{note}</div>")
