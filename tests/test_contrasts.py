@@ -178,3 +178,17 @@ def test_contrasts_refuse_a_numeric_term_and_a_nonparallel_factor(trees, res):
         free = ow.fit(FORMULA, trees, nonparallel=["species"])
     with pytest.raises(ValueError, match="per-threshold"):
         free.contrasts("species")
+
+
+def test_a_string_column_factor_works_like_a_categorical(trees, res):
+    frame = trees.assign(species=trees["species"].astype(str))
+    as_text = ow.fit(FORMULA, frame)
+    a, b = as_text.contrasts("species"), res.contrasts("species")
+    # formulaic sorts string levels, so the reference level may differ: compare the same pairs.
+    for pair in a.differences.index:
+        left, right = pair.split(" - ")
+        other = b.differences
+        est = other.loc[pair, "estimate"] if pair in other.index else -other.loc[f"{right} - {left}", "estimate"]
+        assert a.differences.loc[pair, "estimate"] == pytest.approx(est, abs=1e-6)
+    np.testing.assert_allclose(a.probabilities.loc[list(b.levels)].to_numpy(), b.probabilities.to_numpy(),
+                               atol=1e-6)

@@ -124,7 +124,7 @@ def _set_level(frame, var, value):
     if isinstance(col.dtype, pd.CategoricalDtype):
         new = pd.Categorical([value] * len(frame), categories=col.cat.categories, ordered=col.cat.ordered)
     else:
-        new = np.full(len(frame), value, dtype=object if col.dtype == object else col.dtype)
+        new = pd.Series([value] * len(frame), index=frame.index, dtype=col.dtype)
     return frame.assign(**{var: new})
 
 
