@@ -61,3 +61,14 @@ def test_what_if_exports_the_comparison_table(executed, notebook_copies):
     for case in ["baseline", "scenario"]:
         assert (table[f"{case}_low"] <= table[case]).all()
         assert (table[case] <= table[f"{case}_high"]).all()
+
+
+@pytest.mark.slow
+def test_what_if_writes_a_report_with_both_comparisons(executed, notebook_copies):
+    from ordwidgets.report import SECTION_KEYS
+
+    executed("what_if.ipynb")
+    text = (notebook_copies / "what_if_report.html").read_text(encoding="utf-8")
+    assert all(f"<section id='{key}'>" in text for key in SECTION_KEYS)
+    assert "What if: current scenario" in text and "What if: the same trees on a quiet street" in text
+    assert "## What-if comparisons" in (notebook_copies / "what_if_report.md").read_text(encoding="utf-8")
