@@ -119,17 +119,11 @@ def data_section(state):
 
 
 # ---- estimates ----------------------------------------------------------------------------------
-def estimate_table(res, level):
-    tab = res.table()[["estimate", "std_error", "z", "p_value"]]
-    ci = res.intervals(level)
-    return tab.assign(low=ci["lower"], high=ci["upper"])
-
-
 def estimates_section(state, level):
     res = state.fit
     pct = f"{level:.0%}"
-    blocks = [Table(estimate_table(res, level), f"Estimates on the latent scale with {pct} Wald intervals "
-                    "(low, high); thresholds first, then effects (positive = towards higher categories)",
+    blocks = [Table(res.table(level), f"Estimates on the latent scale with {pct} Wald intervals "
+                    "(wald_low, wald_high); thresholds first, then effects (positive = towards higher categories)",
                     "parameter")]
     if res.link.name == "logit":
         blocks.append(Table(res.odds_scale(level=level), f"Odds scale: exp(beta) with {pct} intervals. "
