@@ -19,7 +19,6 @@ from pathlib import Path
 from ._report_content import Para, Picture, Section, Table, Verdict, report_sections
 from .core import FitResult
 from .core.tables import table_html, table_markdown
-from .figures import png_bytes, svg_text
 
 __all__ = ["write_report", "report_html", "report_markdown", "SECTION_KEYS", "TIMESTAMP_PREFIX"]
 
@@ -61,6 +60,8 @@ def _html_block(block) -> str:
         return (f"<div class='ow-verdict'><span class='ow-grade ow-{_e(block.grade)}'>{_e(block.grade)}</span>"
                 f"<b>{_e(block.check)}</b>: {_e(block.text)}</div>")
     if isinstance(block, Picture):
+        from .figures import svg_text  # matplotlib loads only when a report is written
+
         data = base64.b64encode(svg_text(block.figure).encode("utf-8")).decode("ascii")
         return (f"<figure><img alt='{_e(block.caption)}' src='data:image/svg+xml;base64,{data}'>"
                 f"<figcaption>{_e(block.caption)}</figcaption></figure>")
@@ -91,6 +92,8 @@ def _md_block(block) -> str:
     if isinstance(block, Verdict):
         return f"- **{block.grade.upper()}** {html.escape(block.check, quote=False)}: {html.escape(block.text, quote=False)}"
     if isinstance(block, Picture):
+        from .figures import png_bytes
+
         data = base64.b64encode(png_bytes(block.figure)).decode("ascii")
         caption = html.escape(block.caption, quote=True).replace("]", "&#93;")
         return f"![{caption}](data:image/png;base64,{data})\n\n{caption}"
