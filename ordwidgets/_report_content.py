@@ -106,8 +106,9 @@ def dropped_rows(notes) -> int:
 def data_section(state):
     res = state.fit
     dropped = dropped_rows(res.notes)
-    facts = pd.DataFrame({"value": [res.n_rows + dropped, res.n_rows, dropped, float(res.n_obs),
-                                    state.options.get("weights") or "none"]},
+    weights = state.options.get("weights")
+    weights = weights if isinstance(weights, str) else "none" if weights is None else "given as an array"
+    facts = pd.DataFrame({"value": [res.n_rows + dropped, res.n_rows, dropped, float(res.n_obs), weights]},
                          index=["rows in the data", "rows used", "rows dropped", "weighted units", "weights"])
     facts["value"] = facts["value"].astype(object)
     blocks = [Table(facts, "The rows"), Table(_level_counts(res), f"Levels of {res.response}", "level")]

@@ -125,3 +125,15 @@ def test_tables_in_three_formats_keep_the_html_view_numbers():
     assert "&lt;img src=x onerror=alert(1)&gt;" in md and "&#124;" in md
     assert r"\textless{}img" in tex and r"a\_b|c" in tex
     assert "&lt;img src=x onerror=alert(1)&gt;" in html
+
+
+def test_a_weighted_fit_reports_its_weighted_units(tmp_path):
+    frame = street_trees(200, seed=4).assign(w=lambda f: 1.0 + (f["diameter"] > 30))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        res = ow.fit("grade ~ diameter", frame, weights="w")
+    text = ow.write_report(res, tmp_path / "w.html").read_text(encoding="utf-8")
+    assert format_number(float(frame["w"].sum())) in text and "<td >w</td>" in text
+    counts = frame.groupby("grade", observed=False)["w"].sum()
+    for level, total in counts.items():
+        assert format_number(float(total)) in text, level
