@@ -15,11 +15,8 @@ import io
 
 import numpy as np
 import pandas as pd
-from matplotlib import rc_context
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.figure import Figure
-from matplotlib.patches import Patch
-from matplotlib.ticker import FuncFormatter, PercentFormatter
+
+from .state import FitState
 
 __all__ = ["FIGURES", "state_figure", "panel_figure", "links_figure", "svg_text", "png_bytes"]
 
@@ -88,6 +85,8 @@ _DRAW = {"Lines": draw_lines, "Scatter": draw_scatter, "Label": draw_label}
 
 
 def _formatter(tick_format):
+    from matplotlib.ticker import FuncFormatter, PercentFormatter
+
     if tick_format and tick_format.endswith("%"):
         return PercentFormatter(1.0, decimals=0)
     if tick_format and tick_format.startswith(".") and tick_format.endswith("f"):
@@ -126,6 +125,8 @@ def draw_figure(ax, figure):
 
 
 def _level_legend(ax, levels, colours):
+    from matplotlib.patches import Patch
+
     handles = [Patch(facecolor=c, alpha=0.8, label=str(lv)) for lv, c in zip(levels, colours)]
     ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=min(len(handles), 6),
               frameon=False, fontsize=8)
@@ -133,6 +134,9 @@ def _level_legend(ax, levels, colours):
 
 def new_figure(width=7.0, height=3.6, ncols=1, **kwargs):
     """A matplotlib figure on the Agg canvas (object API) and its axes."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
     fig = Figure(figsize=(width, height), layout="constrained")
     FigureCanvasAgg(fig)
     return fig, fig.subplots(1, ncols, **kwargs)
@@ -226,6 +230,8 @@ def state_figure(state, name, *, view=None):
 # ---- output -------------------------------------------------------------------------------------
 def svg_text(fig) -> str:
     """SVG of ``fig`` without date or random ids (identical for identical figures)."""
+    from matplotlib import rc_context
+
     buf = io.StringIO()
     with rc_context({"svg.hashsalt": _SVG_SALT, "svg.fonttype": "path"}):
         fig.savefig(buf, format="svg", metadata={"Date": None})
@@ -238,3 +244,6 @@ def png_bytes(fig, *, dpi=110) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
     return buf.getvalue()
+
+
+FitState.figure_drawer = staticmethod(state_figure)

@@ -18,6 +18,9 @@ from pathlib import Path
 
 from ._report_content import Para, Picture, Section, Table, Verdict, report_sections
 from .core import FitResult
+from .figures import png_bytes, svg_text  # also installs FitState.figure's drawer
+from .state import FitState
+from .widgets.dashboard import Dashboard
 from .core.tables import table_html, table_markdown
 
 __all__ = ["write_report", "report_html", "report_markdown", "SECTION_KEYS", "TIMESTAMP_PREFIX"]
@@ -60,8 +63,6 @@ def _html_block(block) -> str:
         return (f"<div class='ow-verdict'><span class='ow-grade ow-{_e(block.grade)}'>{_e(block.grade)}</span>"
                 f"<b>{_e(block.check)}</b>: {_e(block.text)}</div>")
     if isinstance(block, Picture):
-        from .figures import svg_text  # matplotlib loads only when a report is written
-
         data = base64.b64encode(svg_text(block.figure).encode("utf-8")).decode("ascii")
         return (f"<figure><img alt='{_e(block.caption)}' src='data:image/svg+xml;base64,{data}'>"
                 f"<figcaption>{_e(block.caption)}</figcaption></figure>")
@@ -92,8 +93,6 @@ def _md_block(block) -> str:
     if isinstance(block, Verdict):
         return f"- **{block.grade.upper()}** {html.escape(block.check, quote=False)}: {html.escape(block.text, quote=False)}"
     if isinstance(block, Picture):
-        from .figures import png_bytes
-
         data = base64.b64encode(png_bytes(block.figure)).decode("ascii")
         caption = html.escape(block.caption, quote=True).replace("]", "&#93;")
         return f"![{caption}](data:image/png;base64,{data})\n\n{caption}"
@@ -110,9 +109,16 @@ def report_markdown(sections, *, title, stamp) -> str:
 
 
 # ---- entry point --------------------------------------------------------------------------------------
-def _state_of(res_or_state, seed):
-    from .state import FitState
+def _version() -> str:
+    from importlib.metadata import PackageNotFoundError, version
 
+    try:
+        return version("ordwidgets")
+    except PackageNotFoundError:
+        return "(not installed)"
+
+
+def _state_of(res_or_state, seed):
     if isinstance(res_or_state, FitResult):
         state = FitState.from_fit(res_or_state)
     elif isinstance(res_or_state, FitState):
@@ -161,11 +167,12 @@ def write_report(res_or_state, path, *, markdown=None, title=None, whatifs=(), l
     sections = report_sections(state, whatifs=whatifs, level=level)
     title = title or f"Ordinal model report: {state.model_formula}"
     when = written or _dt.datetime.now(_dt.timezone.utc)
-    from . import __version__
-
-    stamp = f"{TIMESTAMP_PREFIX}{when:%Y-%m-%d %H:%M:%S %Z}".rstrip() + f" with ordwidgets {__version__}"
+    stamp = f"{TIMESTAMP_PREFIX}{when:%Y-%m-%d %H:%M:%S %Z}".rstrip() + f" with ordwidgets {_version()}"
     path = Path(path)
     path.write_text(report_html(sections, title=title, stamp=stamp), encoding="utf-8")
     if markdown is not None:
         Path(markdown).write_text(report_markdown(sections, title=title, stamp=stamp), encoding="utf-8")
     return path
+
+
+Dashboard.report_writer = staticmethod(write_report)

@@ -542,14 +542,18 @@ class FitState(tl.HasTraits):
         return (id(self.data), self.model_formula, repr(sorted(self.options.items())), self.nonparallel, self.scale_by)
 
     # ---- files -------------------------------------------------------------------------------------------
+    #: Function ``(state, name, **options) -> Figure`` behind :meth:`figure`; installed by
+    #: :mod:`ordwidgets.figures` (which draws the panels, and the panels import this module).
+    figure_drawer = None
+
     def figure(self, name, **options):
         """Static matplotlib picture of one panel: "explorer", "thresholds", "residuals", "links".
 
         See :func:`ordwidgets.figures.state_figure`; drawn from the panel's own marks, no browser.
         """
-        from .figures import state_figure
-
-        return state_figure(self, name, **options)
+        if FitState.figure_drawer is None:
+            raise RuntimeError("figures need ordwidgets.figures (import ordwidgets installs it)")
+        return FitState.figure_drawer(self, name, **options)
 
     def to_dict(self) -> dict:
         """Plain JSON-able description of the spec and the edits (no data)."""

@@ -58,11 +58,14 @@ class Dashboard(w.VBox):
         self.report_button.on_click(lambda _: self.save_report())
         return w.HBox([self.report_button, self.report_link])
 
+    #: Function ``(state, path) -> pathlib.Path`` behind "save report"; installed by
+    #: :mod:`ordwidgets.report` (which draws the panels, so the panels do not import it).
+    report_writer = None
+
     def save_report(self, path=None):
         """Write :func:`ordwidgets.write_report` of the state to ``path`` and offer it for download."""
-        from ..report import write_report
-
-        target = self.state.run_inline("writing the report", lambda: write_report(self.state, path or self.report_path))
+        write = Dashboard.report_writer
+        target = self.state.run_inline("writing the report", lambda: write(self.state, path or self.report_path))
         data = base64.b64encode(target.read_bytes()).decode("ascii")
         self.report_link.value = (f"saved <code>{esc(target)}</code> &middot; <a download='{esc(target.name)}' "
                                   f"href='data:text/html;base64,{data}'>download</a>")
