@@ -18,10 +18,16 @@ A design is any object with
 ``sums(link, params, *, order=2)`` -> ``(loglik, grad or None, hess or None)``
     Log-likelihood and, for ``order`` 1 or 2, its gradient and Hessian at ``params`` on the
     design's internal scale (usually standardised columns).  Sums over rows, so they can
-    be added up over partitions.  ``order=0`` is called at line-search trial points and
-    must not build the Hessian.
+    be added up over partitions.  ``order=0`` (log-likelihood only) must not build the
+    gradient or the Hessian.
 
 and optionally
+
+``loglik(link, params)`` -> float
+    The log-likelihood alone, equal to ``sums(link, params, order=0)[0]`` (``-inf`` where
+    it is not finite), by a leaner path: the engine calls it at line-search trial points
+    after a rejected full step, where nothing else is needed.  Designs without it are
+    asked for ``sums(..., order=0)`` there instead.
 
 ``feasible(params)`` -> bool
     Whether ``params`` define valid probabilities for every row (default: finite with
@@ -331,7 +337,11 @@ def _unscaled(outcome, unit):
 def _newton(design, link, start, feasible, unit, max_iter, tol, callback):
     """Newton on ``loglik / unit``: the decrement test then does not depend on the weight scale."""
 
+    loglik = getattr(design, "loglik", None)
+
     def evaluate(x, order):
+        if order == 0 and loglik is not None:
+            return loglik(link, x) / unit, None, None
         ll, g, H = design.sums(link, x, order=order)
         return ll / unit, None if g is None else g / unit, None if H is None else H / unit
 

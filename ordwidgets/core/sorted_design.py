@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .links import get_link
-from .objective import row_terms
+from .objective import row_logp, row_terms
 
 __all__ = ["SortedDesign", "layout_sorted_design", "DEFAULT_CHUNK"]
 
@@ -141,8 +141,24 @@ class SortedDesign:
         return bool(np.all(self.gaps(params) > 0))
 
     def loglik(self, link, params):
-        """Log-likelihood at ``params``."""
-        return self.sums(link, params, order=0)[0]
+        """Log-likelihood at ``params`` alone (the engine's line-search trial points).
+
+        Per-row log-probabilities only (:func:`~ordwidgets.core.objective.row_logp`): no
+        derivatives and no accumulation; equal to ``sums(link, params, order=0)[0]``.
+        """
+        link = get_link(link)
+        parts = self.split(np.asarray(params, float))
+        ll = 0.0
+        for k, s, e in _segments(self.bounds, self.chunk):
+            ends, _ = self._ends(parts, k, s, e)
+            logp = row_logp(link, upper=ends[0], lower=ends[1])
+            w = None if self.weights is None else self.weights[s:e]
+            if w is not None and np.any(w == 0):
+                logp = np.where(w > 0, logp, 0.0)
+            ll += _wsum(w, logp)
+            if not np.isfinite(ll):
+                return -np.inf
+        return ll
 
     def sums(self, link, params, *, order=2):
         """Log-likelihood and, for ``order`` 1 or 2, gradient and Hessian.
@@ -173,11 +189,12 @@ class SortedDesign:
             acc.H += acc.C + acc.C.T
         return ll, acc.g, acc.H
 
-    def _segment(self, link, parts, k, s, e, order, acc):
+    def _ends(self, parts, k, s, e):
+        """Interval ends ``(upper, lower)`` of the rows ``s:e`` of category ``k`` (``None``
+        for a missing end) and the inverse scale ``1 / exp(z'zeta)`` (``None`` without one)."""
         theta, beta, gamma, zeta = parts
         m = self.n_levels - 1
         X, W, Z = self.X[s:e], self.W[s:e], self.Z[s:e]
-        w = None if self.weights is None else self.weights[s:e]
         eta = X @ beta if beta.size else np.zeros(e - s)
         inv = None
         if zeta.size:
@@ -192,12 +209,18 @@ class SortedDesign:
                 ends.append(a if inv is None else a * inv)
             else:
                 ends.append(None)
+        return ends, inv
+
+    def _segment(self, link, parts, k, s, e, order, acc):
+        m = self.n_levels - 1
+        w = None if self.weights is None else self.weights[s:e]
+        ends, inv = self._ends(parts, k, s, e)
         t = row_terms(link, upper=ends[0], lower=ends[1], hessian=order >= 2)
         if w is not None and np.any(w == 0):
             t = {key: (None if v is None else np.where(w > 0, v, 0.0)) for key, v in t.items()}
         ll = _wsum(w, t["logp"])
         if order >= 1 and np.isfinite(ll):
-            acc.add(k, m, X, None if self._S is None else self._S[s:e], w, inv, ends, t)
+            acc.add(k, m, self.X[s:e], None if self._S is None else self._S[s:e], w, inv, ends, t)
         return ll
 
 
