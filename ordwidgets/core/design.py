@@ -181,21 +181,27 @@ def unusable_rows(data, response, columns, w):
     bad = np.zeros(len(data), dtype=bool)
     counts = {}
     for name, col in cols.items():
-        miss = col.isna().to_numpy()
-        counts[name] = int(miss.sum())
+        miss = np.isnan(col.to_numpy()) if _plain_float(col) else col.isna().to_numpy()
+        counts[name] = np.count_nonzero(miss)
         bad |= miss
-    tally = {"missing": (int(bad.sum()), pd.Series(counts))}
+    tally = {"missing": (np.count_nonzero(bad), pd.Series(counts))}
     rows, counts = np.zeros(len(data), dtype=bool), {}
     for c in columns:
-        if pd.api.types.is_numeric_dtype(data[c].dtype):
-            inf = np.isinf(data[c].to_numpy(dtype=float, na_value=np.nan))
-            counts[c] = int(inf.sum())
+        col = data[c]
+        if pd.api.types.is_numeric_dtype(col.dtype):
+            inf = np.isinf(col.to_numpy() if _plain_float(col) else col.to_numpy(dtype=float, na_value=np.nan))
+            counts[c] = np.count_nonzero(inf)
             rows |= inf
     if counts:
-        tally["infinite"] = (int(rows.sum()), pd.Series(counts))
+        tally["infinite"] = (np.count_nonzero(rows), pd.Series(counts))
         bad |= rows
     bad = pd.Series(bad, index=data.index)
     return ~bad, tally
+
+
+def _plain_float(col):
+    """A numpy float column (no extension type): missing is NaN, read without a copy."""
+    return isinstance(col.dtype, np.dtype) and col.dtype.kind == "f"
 
 
 def unusable_notes(tally):
@@ -226,12 +232,19 @@ def design_matrix(rhs, data):
     except Exception as exc:
         raise OrdinalDataError(f"cannot build the design for {rhs!r}: {exc}") from exc
     cols = [c for c in mm.columns if c != "Intercept"]
-    frame = mm[cols]
-    nonnum = [c for c in cols if not pd.api.types.is_numeric_dtype(frame[c].dtype)]
+    nonnum = [c for c in cols if not pd.api.types.is_numeric_dtype(mm[c].dtype)]
     if nonnum:
         raise OrdinalDataError(f"predictor columns are not numeric: {', '.join(nonnum)}")
-    X = np.asfortranarray(frame.to_numpy(dtype=float)) if cols else np.empty((len(data), 0))
-    return X, tuple(str(c) for c in cols), mm.model_spec
+    return _column_major(mm, cols, len(data)), tuple(str(c) for c in cols), mm.model_spec
+
+
+def _column_major(frame, cols, n):
+    """The columns ``cols`` of ``frame`` as one Fortran-order float array, filled column by
+    column (one copy; no sub-frame and no row-interleaved intermediate)."""
+    X = np.empty((n, len(cols)), order="F")
+    for j, c in enumerate(cols):
+        X[:, j] = frame[c].to_numpy(dtype=float)
+    return X
 
 
 def check_collinear(X, columns, weights=None):

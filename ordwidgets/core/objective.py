@@ -215,15 +215,20 @@ def sorted_standardised(X, order, bounds, weights=None):
     """
     n, p = X.shape
     Xs = np.empty((n, p), order="F")
-    for j in range(p):
-        np.take(X[:, j], order, out=Xs[:, j])
-    low, high = category_ranges(Xs, bounds, weights)
     if p == 0 or n == 0:
+        low, high = category_ranges(Xs, bounds, weights)
         return SortedColumns(Xs, np.zeros(p), np.ones(p), np.zeros((p, p)), low, high)
-    shift = Xs[0].copy()
-    Xs -= shift
+    shift = X[order[0]].copy()
+    low, high = np.empty((len(bounds) - 1, p)), np.empty((len(bounds) - 1, p))
+    for j in range(p):  # column by column while it is in cache: gather, ranges, shift
+        col = Xs[:, j:j + 1]
+        np.take(X[:, j], order, out=col[:, 0])
+        low[:, j:j + 1], high[:, j:j + 1] = category_ranges(col, bounds, weights)
+        col -= shift[j]
     centre, cov = shifted_moments(Xs, weights)
     sd = safe_sd(cov)
-    Xs -= centre
-    Xs /= sd
+    for j in range(p):
+        col = Xs[:, j]
+        col -= centre[j]
+        col /= sd[j]
     return SortedColumns(Xs, shift + centre, sd, cov, low, high)
