@@ -33,6 +33,9 @@ def interval_probability(link, lower, upper):
     """
     link = get_link(link)
     lower, upper = np.broadcast_arrays(np.asarray(lower, float), np.asarray(upper, float))
+    exact = link.exact_interval(lower, upper)
+    if exact is not None:
+        return exact
     upper_side = lower >= link.median
     low = np.where(upper_side, 0.0, lower)
     up = np.where(upper_side, 0.0, upper)
@@ -47,10 +50,14 @@ def interval_logprob(link, lower, upper):
     """``log P(lower < epsilon <= upper)``, finite wherever the interval has mass in floats.
 
     Uses ``log F(u) + log(1 - exp(log F(l) - log F(u)))`` below the median and the mirror
-    form with survival functions above it.
+    form with survival functions above it; links with a closed form for the difference
+    (:meth:`~ordwidgets.core.links.Link.exact_log_interval`) use it instead.
     """
     link = get_link(link)
     lower, upper = np.broadcast_arrays(np.asarray(lower, float), np.asarray(upper, float))
+    exact = link.exact_log_interval(lower, upper)
+    if exact is not None:
+        return exact
     upper_side = lower >= link.median
     with np.errstate(invalid="ignore", divide="ignore"):
         a = np.where(upper_side, link.logsf(lower), link.logcdf(upper))
