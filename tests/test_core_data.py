@@ -84,7 +84,7 @@ def test_fewer_rows_than_parameters():
 
 
 def test_missing_columns_are_listed(df):
-    with pytest.raises(ow.OrdinalDataError, match="not in the data: speed"):
+    with pytest.raises(ow.OrdinalDataError, match="not in the data: 'speed'"):
         ow.fit("grade ~ wait + speed", df)
     with pytest.raises(ow.OrdinalDataError, match="response column 'rating'"):
         ow.fit("rating ~ wait", df)

@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from .exceptions import CollinearityError, DataWarning, OrdinalDataError
+from .naming import check_unique, parsed_terms, required_columns, string_columns
 
 __all__ = ["PreparedData", "prepare", "split_formula", "encode_response", "threshold_labels"]
 
@@ -111,21 +112,6 @@ def _check_levels_agree(s, levels, name):
             f"{list(levels)!r}; drop levels= or reorder the column (s.cat.reorder_categories)")
 
 
-def required_columns(rhs, data):
-    from formulaic import Formula
-
-    try:
-        names = {str(v) for v in Formula(rhs).required_variables}
-    except Exception as exc:  # formulaic raises several parser error types
-        raise OrdinalDataError(f"cannot parse the predictors {rhs!r}: {exc}") from exc
-    names = sorted(n for n in names if n not in {"np", "numpy"})
-    missing = [n for n in names if n not in data.columns]
-    if missing:
-        raise OrdinalDataError(
-            f"columns not in the data: {', '.join(missing)}; available: "
-            f"{', '.join(map(str, data.columns[:20]))}"
-        )
-    return names
 
 
 def check_mixed_types(data, columns):
@@ -151,9 +137,11 @@ def weights_array(weights, data):
             raise OrdinalDataError(f"weights column {weights!r} is not in the data")
         w = data[weights]
     else:
-        w = pd.Series(np.asarray(weights), index=data.index)
-        if len(w) != len(data):
-            raise OrdinalDataError(f"weights has {len(w)} entries for {len(data)} rows")
+        values = np.asarray(weights)
+        if values.ndim != 1 or len(values) != len(data):
+            raise OrdinalDataError(f"weights has shape {values.shape} for {len(data)} rows; "
+                                   "give one weight per row (or a column name)")
+        w = pd.Series(values, index=data.index)
     if not pd.api.types.is_numeric_dtype(w.dtype) or pd.api.types.is_bool_dtype(w.dtype):
         raise OrdinalDataError(f"weights must be numeric, got {w.dtype}")
     w = w.astype(float)
@@ -266,6 +254,10 @@ def check_collinear_moments(columns, mean, cov):
     """:func:`check_collinear` from the weighted means and (population) covariance matrix."""
     if not len(columns):
         return
+    overflow = [c for c, v in zip(columns, np.diag(cov)) if not np.isfinite(v)]
+    if overflow or not np.all(np.isfinite(mean)):
+        raise OrdinalDataError(f"predictor values too large for double-precision moments: "
+                               f"{', '.join(overflow) or ', '.join(columns)}; rescale those columns")
     sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
     const = [c for c, s, m in zip(columns, sd, mean) if s <= 1e-12 * max(1.0, abs(m))]
     if const:
@@ -283,6 +275,11 @@ def check_collinear_moments(columns, mean, cov):
 def prepare(formula, data, *, weights=None, levels=None):
     """Validate and encode the data of one fit.
 
+    Column names that are not strings are used as ``str(name)`` (write ``"`3`"`` in the
+    formula); rows whose transformed predictor values are missing or infinite (``np.log``
+    of a non-positive value) are dropped with a :class:`DataWarning`, like rows with
+    missing data.
+
     Returns
     -------
     PreparedData
@@ -290,23 +287,112 @@ def prepare(formula, data, *, weights=None, levels=None):
     if not isinstance(data, pd.DataFrame):
         raise OrdinalDataError(f"data must be a pandas DataFrame, got {type(data).__name__}")
     response, rhs = split_formula(formula)
+    columns = required_columns(rhs, data)
+    data = string_columns(data)
     if response not in data.columns:
         raise OrdinalDataError(f"response column {response!r} is not in the data")
-    columns = required_columns(rhs, data)
+    check_unique(data, [response, *columns] + ([weights] if isinstance(weights, str) else []))
     check_mixed_types(data, columns)
+    check_design_size(rhs, data)
     w = weights_array(weights, data)
     keep, notes = _drop_unusable(data, response, columns, w)
-    data = data if bool(keep.all()) else data.loc[keep]
+    data = data if bool(keep.all()) else data[keep.to_numpy()]
     y, lv = encode_response(data[response], levels, name=response)
     X, names, spec = design_matrix(rhs, data)
-    warr = None if w is None else w[keep].to_numpy(float)
-    y, lv, more = _drop_empty_levels(y, lv, warr, response)
-    notes += more
+    warr = None if w is None else w[keep.to_numpy()].to_numpy(float)
+    finite, more = _finite_design_rows(X, names)
+    if finite is not None:
+        data, X, y = data[finite], X[finite], y[finite]
+        warr = None if warr is None else warr[finite]
+    check_magnitudes(X, names)
+    y, lv, levels_notes = _drop_empty_levels(y, lv, warr, response)
+    notes += more + levels_notes
     return PreparedData(X, y, warr, lv, names, response, rhs, spec, data.index, notes, frame=data)
 
 
+def _finite_design_rows(X, names):
+    """Rows whose design values are all finite (``None`` when every row is), with the note."""
+    bad = ~np.isfinite(X)
+    if not bad.any():
+        return None, []
+    counts = bad.sum(axis=0)
+    detail = ", ".join(f"{c}: {int(k)}" for c, k in zip(names, counts) if k)
+    rows = bad.any(axis=1)
+    note = f"dropped {int(rows.sum())} rows whose transformed values are missing or infinite ({detail})"
+    warnings.warn(note, DataWarning, stacklevel=4)
+    return ~rows, [note]
+
+
+#: Largest magnitude of a design value: sums of squares of larger ones overflow in doubles.
+MAX_MAGNITUDE = 1e100
+#: Largest design (rows x columns x 8 bytes) a formula may ask for before it is built.
+MAX_DESIGN_BYTES = 2 ** 31
+
+
+def check_magnitudes(X, names):
+    """Refuse design columns with values too large for double-precision moments."""
+    if not X.size:
+        return
+    big = np.abs(X).max(axis=0) > MAX_MAGNITUDE
+    if big.any():
+        detail = ", ".join(f"{c} (up to {np.abs(X[:, j]).max():.3g})" for j, c in enumerate(names) if big[j])
+        raise OrdinalDataError(f"predictor values beyond {MAX_MAGNITUDE:.0e} cannot be fitted in double "
+                               f"precision: {detail}; rescale those columns")
+
+
+def check_design_size(rhs, data):
+    """Refuse, before building it, a design with more columns than rows or beyond the memory cap.
+
+    Each categorical factor (a text, boolean or categorical column, or ``C(...)`` of one
+    column) contributes at least ``levels - 1`` columns per term (treatment coding); the
+    estimate is a lower bound, so nothing that could be fitted is refused.
+    """
+    n = len(data)
+    sizes, total = {}, 0
+    for term in parsed_terms(rhs):
+        cols = 1
+        for f in term:
+            levels = _factor_levels(f, data, sizes)
+            cols *= max(levels - 1, 1) if levels else 1
+        total += cols
+    if (n and total + 1 > n) or total * n * 8 > MAX_DESIGN_BYTES:  # + 1: at least one threshold
+        wide = ", ".join(f"{e} ({k:,} levels)" for e, k in sizes.items() if k > 20) or "several factors"
+        raise OrdinalDataError(
+            f"the formula would build at least {total:,} design columns for {n:,} rows "
+            f"({total * n * 8 / 1e9:.2g} GB): {wide}; a C(...) of a continuous column or an "
+            "identifier makes one column per distinct value"
+        )
+
+
+def _factor_levels(factor, data, sizes):
+    """Distinct values of a categorical factor (``None`` for a numeric one)."""
+    if factor.method == "lookup":
+        col = data[factor.expr]
+        if pd.api.types.is_numeric_dtype(col.dtype) and not pd.api.types.is_bool_dtype(col.dtype):
+            return None
+    elif factor.expr.startswith("C(") and len(factor.variables) == 1:
+        col = data[next(iter(factor.variables))]
+    else:
+        return None
+    if factor.expr not in sizes:
+        sizes[factor.expr] = int(col.nunique(dropna=True))
+    return sizes[factor.expr]
+
+
 def _drop_empty_levels(y, levels, w, response):
-    kept, lv, notes = empty_levels(np.bincount(y, weights=w, minlength=len(levels)), levels, response)
+    """Recode ``y`` without the levels that have no observations.
+
+    Levels whose rows all have weight zero are refused: the weights, not the data, removed them.
+    """
+    counts = np.bincount(y, weights=w, minlength=len(levels))
+    rows_per = np.bincount(y, minlength=len(levels))
+    zeroed = [levels[i] for i in np.flatnonzero((counts <= 0) & (rows_per > 0))]
+    if zeroed:
+        raise OrdinalDataError(
+            f"weights are zero for every row of level(s) {', '.join(map(repr, zeroed))} of {response!r}; "
+            "drop those rows (or the level) explicitly, or give them positive weights"
+        )
+    kept, lv, notes = empty_levels(counts, levels, response)
     for n in notes:
         warnings.warn(n, DataWarning, stacklevel=4)
     if kept is None:

@@ -15,6 +15,8 @@ __all__ = [
     "CrossingError",
     "CrossingWarning",
     "ComparisonError",
+    "ArgumentError",
+    "UnseenLevelError",
 ]
 
 
@@ -24,6 +26,14 @@ class OrdinalDataError(ValueError):
 
 class UnknownLinkError(ValueError):
     """The requested link is not one of the available links."""
+
+
+class ArgumentError(OrdinalDataError, TypeError):
+    """An argument breaks its rule (see :mod:`ordwidgets.core.arguments`); names the argument."""
+
+
+class UnseenLevelError(OrdinalDataError):
+    """New data hold levels of a factor (or missing values) the fit has no effect for."""
 
 
 class CollinearityError(OrdinalDataError):

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .arguments import FIT_RULES, check_arguments
 from .dask_fit import DEFAULT_SAMPLE_ROWS, is_dask_frame, partitioned_problem
 from .design import check_collinear_moments, prepare, threshold_labels
 from .engine import PreparedFit, check_enough_rows, maximise, user_scale_matrix
@@ -69,6 +70,7 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
         For a Dask DataFrame see :func:`fit_dask` (same model,
         sums reduced over partitions; the result keeps a sample of rows for display).
     """
+    check_arguments("fit", FIT_RULES, locals())
     if is_dask_frame(data):
         return fit_dask(formula, data, link=link, weights=weights, levels=levels, max_iter=max_iter, tol=tol,
                         keep_data=keep_data, callback=callback, nonparallel=nonparallel, scale_by=scale_by)

@@ -10,6 +10,7 @@ from scipy import stats
 from .effects import prediction_intervals, probabilities_at, wald_bounds
 from .layout import error_bounds_of, location_predictor
 from .links import Link
+from .newdata import new_design
 from .probabilities import interval_logprob
 from .summary import render_html, render_text, summary_facts, weighting_text
 
@@ -155,11 +156,7 @@ class FitResult:
         """Design matrix (no intercept) for ``data`` (default: the training rows)."""
         if data is None:
             return self.training_rows().X
-        cols = self.layout.columns
-        if self.model_spec is None or not cols:
-            return np.empty((len(data), 0))
-        mm = self.model_spec.get_model_matrix(data, na_action="ignore")
-        return mm[list(cols)].to_numpy(float)
+        return new_design(self, data, self.layout.columns)
 
     def linear_predictor(self, data=None) -> np.ndarray:
         """``eta = x'beta`` for each row (parallel location effects only)."""

@@ -1,0 +1,186 @@
+"""Rules for the public arguments, each stated once, checked in one place.
+
+Every public entry point (``fit``, ``FitResult.predict`` and its siblings, ``FitState``'s
+options, threshold edits) names its arguments' rules in a table here and calls
+:func:`check_arguments` once.  A broken rule raises :class:`ArgumentError` (a
+:class:`~ordwidgets.core.exceptions.OrdinalDataError` and a :class:`TypeError`) with one
+message shape::
+
+    fit: max_iter must be an integer >= 1, got -5
+
+The idea of declaring constraints per parameter follows scikit-learn's
+``_parameter_constraints``; the code is our own.
+"""
+from __future__ import annotations
+
+import math
+import numbers
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from .exceptions import ArgumentError, UnknownLinkError
+from .links import LINKS, Link
+
+__all__ = ["Rule", "check_arguments", "check_keys", "check_position", "integer", "real", "one_of",
+           "optional", "either", "FIT_RULES", "PREDICT_RULES", "STATE_OPTION_RULES", "KINDS"]
+
+
+@dataclass(frozen=True)
+class Rule:
+    """What an argument must be (``describe``, for the message) and the test of it."""
+
+    describe: str
+    test: Callable[[object], bool]
+    error: type = ArgumentError
+
+    def holds(self, value) -> bool:
+        try:
+            return bool(self.test(value))
+        except (TypeError, ValueError, OverflowError):
+            return False
+
+
+def _is_int(value):
+    return isinstance(value, numbers.Integral) and not isinstance(value, (bool, np.bool_))
+
+
+def _is_real(value):
+    return isinstance(value, numbers.Real) and not isinstance(value, (bool, np.bool_))
+
+
+def integer(low=None, high=None) -> Rule:
+    """An integer (not a bool, not a float) in ``[low, high]``."""
+    span = _span(low, high, "<=", "<=")
+    return Rule(f"an integer{span}", lambda v: _is_int(v) and _inside(v, low, high, False, False))
+
+
+def real(low=None, high=None, *, open_low=False, open_high=False) -> Rule:
+    """A finite real number in the interval from ``low`` to ``high``."""
+    span = _span(low, high, "<" if open_low else "<=", "<" if open_high else "<=")
+    return Rule(f"a finite number{span}",
+                lambda v: _is_real(v) and math.isfinite(v) and _inside(v, low, high, open_low, open_high))
+
+
+def _span(low, high, lo_op, hi_op):
+    if low is not None and high is not None:
+        return f" with {low} {lo_op} value {hi_op} {high}"
+    if low is not None:
+        return f" {'>' if lo_op == '<' else '>='} {low}"
+    return "" if high is None else f" {'<' if hi_op == '<' else '<='} {high}"
+
+
+def _inside(v, low, high, open_low, open_high):
+    above = low is None or (v > low if open_low else v >= low)
+    below = high is None or (v < high if open_high else v <= high)
+    return above and below
+
+
+def one_of(*values, error=ArgumentError) -> Rule:
+    """One of a fixed set of values (compared with ``==``, no coercion)."""
+    listed = ", ".join(repr(v) for v in values)
+    return Rule(f"one of {listed}", lambda v: isinstance(v, str) and v in values, error)
+
+
+def optional(rule) -> Rule:
+    """``None`` or what ``rule`` accepts."""
+    return Rule(f"None or {rule.describe}", lambda v: v is None or rule.holds(v), rule.error)
+
+
+def either(*rules) -> Rule:
+    """What any of ``rules`` accepts."""
+    return Rule(" or ".join(r.describe for r in rules), lambda v: any(r.holds(v) for r in rules))
+
+
+BOOLEAN = Rule("True or False", lambda v: isinstance(v, (bool, np.bool_)))
+TEXT = Rule("a string", lambda v: isinstance(v, str))
+CALLABLE = Rule("a callable", callable)
+NAMES = Rule("a list of predictor names (strings)",
+             lambda v: isinstance(v, (list, tuple)) and all(isinstance(n, str) for n in v))
+SEQUENCE = Rule("a list or tuple of levels without repeats",
+                lambda v: isinstance(v, (list, tuple, np.ndarray)) and len(set(map(repr, v))) == len(v))
+VECTOR = Rule("a column name or a one-dimensional array of numbers",
+              lambda v: isinstance(v, str) or np.ndim(v) == 1)
+LINK = Rule("one of " + ", ".join(LINKS) + " (or a Link)",
+            lambda v: isinstance(v, Link) or (isinstance(v, str) and v.strip().lower() in LINKS),
+            UnknownLinkError)
+FRAME = Rule("a pandas DataFrame", lambda v: hasattr(v, "columns") and hasattr(v, "index"))
+
+#: Prediction kinds of :meth:`~ordwidgets.core.results.FitResult.predict`.
+KINDS = ("probabilities", "cumulative", "latent", "most_likely")
+
+FIT_RULES = {
+    "formula": TEXT,
+    "link": LINK,
+    "weights": optional(VECTOR),
+    "levels": optional(SEQUENCE),
+    "max_iter": integer(1, 100_000),
+    "tol": real(0, 1, open_low=True),
+    "keep_data": BOOLEAN,
+    "callback": optional(CALLABLE),
+    "nonparallel": optional(NAMES),
+    "scale_by": optional(NAMES),
+}
+
+PREDICT_RULES = {
+    "data": optional(FRAME),
+    "kind": one_of(*KINDS),
+    "level": optional(real(0, 1, open_low=True, open_high=True)),
+}
+
+#: Keys of ``FitState(options=...)``: the fit options a state passes on to ``fit``.
+STATE_OPTION_RULES = {
+    "weights": optional(TEXT),
+    "levels": optional(SEQUENCE),
+}
+
+
+def check_arguments(where, rules, values):
+    """Check every argument in ``values`` that has a rule; raise on the first broken one.
+
+    Parameters
+    ----------
+    where : str
+        Name of the entry point, the first word of the message.
+    rules : dict
+        ``{argument: Rule}``.
+    values : dict
+        ``{argument: value}`` (for example ``locals()`` at the top of a function); entries
+        without a rule are ignored.
+
+    Raises
+    ------
+    ArgumentError, UnknownLinkError
+        ``"<where>: <argument> must be <rule>, got <value>"``.
+    """
+    for name, rule in rules.items():
+        if name in values and not rule.holds(values[name]):
+            raise rule.error(f"{where}: {name} must be {rule.describe}, got {_show(values[name])}")
+
+
+def check_keys(where, rules, mapping):
+    """Refuse keys of ``mapping`` that have no rule, then check the values.
+
+    Raises
+    ------
+    ArgumentError
+        For a non-dict, an unknown key (the message lists the accepted ones) or a bad value.
+    """
+    if not isinstance(mapping, dict):
+        raise ArgumentError(f"{where} must be a dict, got {_show(mapping)}")
+    unknown = [k for k in mapping if k not in rules]
+    if unknown:
+        raise ArgumentError(f"{where}: unknown key(s) {', '.join(map(repr, unknown))}; "
+                            f"accepted: {', '.join(map(repr, rules))}")
+    check_arguments(where, rules, mapping)
+
+
+def check_position(where, name, value, size):
+    """Refuse a position that is not an integer in ``0..size-1`` (negative ones too)."""
+    check_arguments(where, {name: integer(0, size - 1)}, {name: value})
+
+
+def _show(value) -> str:
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
