@@ -28,6 +28,7 @@ import pandas as pd
 import traitlets as tl
 
 from .core import FitResult, OrdinalDataError, fit as core_fit, link_names
+from .core.arguments import STATE_OPTION_RULES, check_keys
 from .core.effects import probabilities_at
 from . import _spec
 from ._jobs import JobRunner
@@ -263,6 +264,11 @@ class FitState(tl.HasTraits):
         if np.any(np.diff(theta) <= 0):
             raise tl.TraitError(f"thresholds must be strictly increasing, got {list(values)}")
         return values
+
+    @tl.validate("options")
+    def _valid_options(self, proposal):
+        check_keys("FitState options", STATE_OPTION_RULES, proposal["value"])
+        return proposal["value"]
 
     @tl.validate("scenario", "baseline")
     def _valid_scenario(self, proposal):

@@ -131,7 +131,7 @@ PREDICT_RULES = {
 
 #: Keys of ``FitState(options=...)``: the fit options a state passes on to ``fit``.
 STATE_OPTION_RULES = {
-    "weights": optional(TEXT),
+    "weights": optional(VECTOR),
     "levels": optional(SEQUENCE),
 }
 

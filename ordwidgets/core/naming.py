@@ -34,9 +34,9 @@ def quote_name(name) -> str:
         If the name holds a backtick (a formula cannot quote it) or is empty.
     """
     text = str(name)
-    if "`" in text or not text.strip():
-        raise OrdinalDataError(f"column name {text!r} cannot be written in a formula "
-                               "(it is empty or holds a backtick); rename the column")
+    if "`" in text or not text.strip() or text == "1":
+        raise OrdinalDataError(f"column name {text!r} cannot be written in a formula (it is empty, holds a "
+                               "backtick, or is 1, which a formula reads as the intercept); rename the column")
     if _PLAIN.fullmatch(text) and not keyword.iskeyword(text):
         return text
     return f"`{text}`"
@@ -149,6 +149,9 @@ def _needed(rhs):
 
 def _check_literal_names(rhs, columns):
     """A column named ``1`` (an int) and the formula ``y ~ x + 1``: refuse, do not guess."""
+    if "`1`" in rhs:
+        raise OrdinalDataError("the formula quotes `1`, which formulaic reads as the intercept, not as a "
+                               "column named 1; rename that column")
     numeric = {str(c) for c in columns if not isinstance(c, str)}
     if not numeric:
         return

@@ -7,6 +7,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .arguments import PREDICT_RULES, check_arguments
 from .effects import prediction_intervals, probabilities_at, wald_bounds
 from .layout import error_bounds_of, location_predictor
 from .links import Link
@@ -180,6 +181,7 @@ class FitResult:
             has a column MultiIndex ``(part, level)``, ``part`` in "estimate", "lower",
             "upper" (see :func:`ordwidgets.core.effects.prediction_intervals`).
         """
+        check_arguments("predict", PREDICT_RULES, {"data": data, "kind": kind, "level": level})
         if level is not None:
             return prediction_intervals(self, data, kind=kind, level=level)
         X = self.design(data)  # built once: formula encoding is the costly part
