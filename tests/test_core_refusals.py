@@ -193,7 +193,7 @@ def test_state_options_refuse_unknown_keys():
 
 @pytest.mark.parametrize("kwargs, message", [
     ({"kind": "class"}, "predict: kind must be one of 'probabilities'"),
-    ({"level": 1.5}, "predict: level must be None or a finite number"),
+    ({"level": 1.5}, "predict: level must be strictly between 0 and 1 \\(or None\\), got 1.5"),
     ({"data": [[1, 2]]}, "predict: data must be None or a pandas DataFrame"),
 ])
 def test_predict_arguments(kwargs, message):

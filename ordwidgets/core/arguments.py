@@ -126,7 +126,8 @@ FIT_RULES = {
 PREDICT_RULES = {
     "data": optional(FRAME),
     "kind": one_of(*KINDS),
-    "level": optional(real(0, 1, open_low=True, open_high=True)),
+    "level": Rule("strictly between 0 and 1 (or None)",
+                  lambda v: v is None or real(0, 1, open_low=True, open_high=True).holds(v)),
 }
 
 #: Keys of ``FitState(options=...)``: the fit options a state passes on to ``fit``.
