@@ -2,27 +2,31 @@
 
 Reading is defensive: the file is size-limited, parsed with :func:`json.loads` (no
 ``NaN``/``Infinity`` constants), checked key by key against a fixed schema, and the formula
-is accepted only when every name in it is a column of the data or one of a few known
-transforms.  Nothing from the file is evaluated before those checks pass; data never
-comes from the file.
+is parsed (never evaluated) and accepted only when it is made of data columns, constants
+and a few known transforms (:mod:`ordwidgets._statecheck`).  Data never come from the
+file, but a fingerprint of the data the state was saved on (rows, dtypes, levels and a
+hash of the columns the model uses) does: loading onto other data is refused unless
+``spec_only=True`` asks to apply only the model spec, dropping edits and row selections
+with a warning.  Every failure is a :class:`StateFileError`.
 """
 from __future__ import annotations
 
 import json
 import math
 import os
-import re
+import warnings
 
-from .core import link_names
+import pandas as pd
+
+from .core import DataWarning, link_names
+from .core.arguments import integer
+from ._statecheck import UnsafeFormula, data_fingerprint, fingerprint_differences, safe_formula, used_columns
 
 __all__ = ["StateFileError", "state_to_dict", "write_state", "read_state", "FORMAT"]
 
 FORMAT = "ordwidgets-state"
-VERSION = 1
+VERSION = 2
 MAX_BYTES = 1_000_000
-_TRANSFORMS = {"C", "np", "log", "exp", "sqrt", "center", "scale", "I"}
-_NP_FUNCS = {"log", "exp", "sqrt", "log1p", "abs"}
-_FORMULA_CHARS = re.compile(r"^[A-Za-z0-9_ .~+\-*:/(),^]*$")
 _NAME_LIST_KEYS = ("dropped", "nonparallel", "scale_by")
 
 
@@ -45,7 +49,15 @@ def state_to_dict(state) -> dict:
         "baseline": {k: _plain(v) for k, v in state.baseline.items()}, "focus": state.focus,
         "residual_draws": state.residual_draws, "residual_seed": state.residual_seed,
         "selection": list(state.selection),
+        "data": data_fingerprint(state.data, _used(state.formula, state.data, weights, state.scale_by)),
     }
+
+
+def _used(formula, data, weights, scale_by):
+    try:
+        return used_columns(formula, data, weights=weights, scale_by=scale_by)
+    except ValueError as exc:
+        raise StateFileError(f"the saved model does not match these data: {exc}") from None
 
 
 def _plain(value):
@@ -59,30 +71,63 @@ def write_state(state, path):
         fh.write(text + "\n")
 
 
-def read_state(cls, path, data, **kwargs):
-    """Check a state file against the schema and ``data``, then rebuild the state."""
+def read_state(cls, path, data, *, spec_only=False, **kwargs):
+    """Check a state file against the schema and ``data``, then rebuild the state.
+
+    Parameters
+    ----------
+    spec_only : bool
+        Apply only the model spec (formula, link, options, predictor roles) to ``data``
+        even when they are not the data the file was saved on; the saved threshold edits,
+        scenarios and row selection are then dropped with a :class:`DataWarning`.
+
+    Raises
+    ------
+    StateFileError
+        For every problem: the file, its formula, other data (without ``spec_only``), a
+        model that cannot be fitted, edits that do not fit the model.
+    """
+    if not isinstance(data, pd.DataFrame):
+        raise StateFileError(f"data must be a pandas DataFrame, got {type(data).__name__}")
     spec = check_document(parse_file(path), data)
+    used = _used(spec["formula"], data, spec["weights"], spec["scale_by"])
+    differences = fingerprint_differences(spec["data"], data, used)
+    if differences and not spec_only:
+        raise StateFileError("the file was saved on other data (" + "; ".join(differences) + "); pass "
+                             "spec_only=True to apply only the model spec (edits and selections are dropped)")
     options = {k: spec[k] for k in ("weights", "levels") if spec[k] is not None}
-    state = cls(data=data, formula=spec["formula"], link=spec["link"], options=options,
-                dropped=tuple(spec["dropped"]), nonparallel=tuple(spec["nonparallel"]),
-                scale_by=tuple(spec["scale_by"]), **kwargs)
+    try:
+        state = cls(data=data, formula=spec["formula"], link=spec["link"], options=options,
+                    dropped=tuple(spec["dropped"]), nonparallel=tuple(spec["nonparallel"]),
+                    scale_by=tuple(spec["scale_by"]), **kwargs)
+    except Exception as exc:  # noqa: BLE001 - every failure of a load is a StateFileError
+        raise StateFileError(f"the saved model cannot be fitted to these data: {exc}") from exc
     if state.error:
         raise StateFileError(f"the saved model cannot be fitted to these data: {state.error}")
+    if spec_only:
+        _drop_edits(spec)
     _apply_edits(state, spec)
     return state
 
 
-def _apply_edits(state, spec):
-    import traitlets
+def _drop_edits(spec):
+    dropped = [k for k in ("thresholds", "scenario", "baseline", "selection") if spec[k]]
+    if dropped:
+        warnings.warn(f"spec_only: the saved {', '.join(dropped)} belong to the data the file was saved on "
+                      "and were dropped", DataWarning, stacklevel=4)
+    spec["scenario"], spec["baseline"], spec["selection"], spec["thresholds"] = {}, {}, [], None
 
+
+def _apply_edits(state, spec):
     try:
         with state.batch():
-            state.thresholds = tuple(spec["thresholds"])
+            if spec["thresholds"] is not None:
+                state.thresholds = tuple(spec["thresholds"])
             state.scenario, state.baseline = spec["scenario"], spec["baseline"]
             state.focus = spec["focus"] or state.focus
             state.residual_draws, state.residual_seed = spec["residual_draws"], spec["residual_seed"]
             state.selection = tuple(spec["selection"])
-    except traitlets.TraitError as exc:
+    except Exception as exc:  # noqa: BLE001 - TraitError, refused edits: all StateFileError here
         raise StateFileError(f"the saved edits do not fit the model: {exc}") from exc
 
 
@@ -114,8 +159,10 @@ _SCHEMA = {
     "format": str, "version": int, "formula": str, "link": str, "weights": (str, type(None)),
     "levels": (list, type(None)), "dropped": list, "nonparallel": list, "scale_by": list,
     "thresholds": list, "scenario": dict, "baseline": dict, "focus": str,
-    "residual_draws": int, "residual_seed": int, "selection": list,
+    "residual_draws": int, "residual_seed": int, "selection": list, "data": dict,
 }
+_DATA_SCHEMA = {"rows": int, "dtypes": dict, "levels": dict, "hash": str}
+_INTEGERS = {"residual_draws": integer(1, 50), "residual_seed": integer(0, 2 ** 32 - 1)}
 
 
 def check_document(doc, data) -> dict:
@@ -137,16 +184,11 @@ def check_document(doc, data) -> dict:
 
 
 def check_formula(formula, data):
-    """Accept only formulas made of data columns, numbers, operators and known transforms."""
-    columns = {str(c) for c in data.columns}
-    if len(formula) > 2000 or not _FORMULA_CHARS.match(formula) or "__" in formula:
-        raise StateFileError(f"formula {formula[:80]!r} holds characters a model formula does not need")
-    for match in re.finditer(r"[A-Za-z_][A-Za-z0-9_]*(\.[A-Za-z_][A-Za-z0-9_]*)*", formula):
-        name = match.group(0)
-        head, _, attr = name.partition(".")
-        if name in columns or (not attr and head in _TRANSFORMS) or (head == "np" and attr in _NP_FUNCS):
-            continue
-        raise StateFileError(f"formula names {name!r}, which is neither a data column nor a known transform")
+    """Accept only formulas made of data columns, constants, operators and known transforms."""
+    try:
+        safe_formula(formula, data)
+    except UnsafeFormula as exc:
+        raise StateFileError(f"formula refused: {exc}") from None
 
 
 def _check_contents(doc, data):
@@ -156,16 +198,29 @@ def _check_contents(doc, data):
     for key in _NAME_LIST_KEYS:
         if not all(isinstance(v, str) and v in columns for v in doc[key]):
             raise StateFileError(f"state file entry {key!r} must list data columns")
-    if not all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in doc["thresholds"]):
+    if not all(_number(v) for v in doc["thresholds"]):
         raise StateFileError("thresholds must be finite numbers")
+    for key, rule in _INTEGERS.items():
+        if not rule.holds(doc[key]):
+            raise StateFileError(f"state file entry {key!r} must be {rule.describe}, got {doc[key]!r}")
+    fp = doc["data"]
+    if set(fp) != set(_DATA_SCHEMA) or not all(isinstance(fp[k], t) for k, t in _DATA_SCHEMA.items()):
+        raise StateFileError("state file entry 'data' (the fingerprint of the data) is malformed")
     for key in ("scenario", "baseline"):
         if not all(isinstance(k, str) and _scalar(v) for k, v in doc[key].items()):
             raise StateFileError(f"state file entry {key!r} must map column names to plain values")
     if doc["levels"] is not None and not all(_scalar(v) for v in doc["levels"]):
         raise StateFileError("levels must be plain values")
-    if not all(isinstance(v, int) and not isinstance(v, bool) for v in doc["selection"]):
+    if not all(isinstance(v, int) and not isinstance(v, bool) and 0 <= v < 2 ** 63 for v in doc["selection"]):
         raise StateFileError("selection must list row positions")
 
 
+def _number(value):
+    """A finite JSON number that converts to a float (huge integers overflow)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return False
+    return abs(value) < 1e300 if isinstance(value, int) else math.isfinite(value)
+
+
 def _scalar(value):
-    return isinstance(value, (str, int, float, bool)) and not (isinstance(value, float) and not math.isfinite(value))
+    return (isinstance(value, str) and len(value) <= 10_000) or isinstance(value, bool) or _number(value)

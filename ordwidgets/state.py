@@ -574,8 +574,12 @@ class FitState(tl.HasTraits):
         write_state(self, path)
 
     @classmethod
-    def load(cls, path, data, **kwargs):
+    def load(cls, path, data, *, spec_only=False, **kwargs):
         """Rebuild a state from :meth:`save` output and the same ``data``.
+
+        The file holds a fingerprint of the data it was saved on; other data are refused
+        unless ``spec_only=True``, which applies only the model spec and drops the saved
+        threshold edits, scenarios and selection with a ``DataWarning``.
 
         Raises
         ------
@@ -584,7 +588,7 @@ class FitState(tl.HasTraits):
         """
         from ._statefile import read_state
 
-        return read_state(cls, path, data, **kwargs)
+        return read_state(cls, path, data, spec_only=spec_only, **kwargs)
 
     def close(self):
         """Stop the long work: queued jobs are cancelled, running ones dropped, threads ended.
