@@ -31,3 +31,8 @@ from .inference import compare, compare_links  # noqa: E402
 __all__ += ["compare", "compare_links", "CrossingError", "CrossingWarning", "ComparisonError"]
 
 __all__ += ["fit_dask"]  # (imports Dask only when a Dask frame is fitted)
+
+from .exceptions import ArgumentError, UnseenLevelError  # noqa: E402
+from .naming import quote_name, unquote_name  # noqa: E402
+
+__all__ += ["ArgumentError", "UnseenLevelError", "quote_name", "unquote_name"]
