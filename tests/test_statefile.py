@@ -107,7 +107,7 @@ def test_hostile_formulas_are_refused_without_evaluation(frame, tmp_path, formul
 
 
 json_values = hst.recursive(
-    hst.none() | hst.booleans() | hst.integers(-(10 ** 400), 10 ** 400) | hst.floats(allow_nan=False)
+    hst.none() | hst.booleans() | hst.integers(-(10 ** 400), 10 ** 400) | hst.floats(allow_nan=False, allow_infinity=False)
     | hst.text(max_size=12),
     lambda inner: hst.lists(inner, max_size=4) | hst.dictionaries(hst.text(max_size=6), inner, max_size=3),
     max_leaves=8,
