@@ -311,16 +311,25 @@ def prepare(formula, data, *, weights=None, levels=None):
 
 
 def _finite_design_rows(X, names):
-    """Rows whose design values are all finite (``None`` when every row is), with the note."""
-    bad = ~np.isfinite(X)
-    if not bad.any():
+    """Rows whose design values are all finite (``None`` when every row is), with the note.
+
+    One pass of column minima and maxima (they propagate ``nan``) decides whether any row
+    needs looking at.
+    """
+    if not X.size or np.isfinite(_column_peaks(X)).all():
         return None, []
+    bad = ~np.isfinite(X)
     counts = bad.sum(axis=0)
     detail = ", ".join(f"{c}: {int(k)}" for c, k in zip(names, counts) if k)
     rows = bad.any(axis=1)
     note = f"dropped {int(rows.sum())} rows whose transformed values are missing or infinite ({detail})"
     warnings.warn(note, DataWarning, stacklevel=4)
     return ~rows, [note]
+
+
+def _column_peaks(X):
+    """Largest magnitude per column (``nan`` where a column holds one)."""
+    return np.maximum(np.abs(X.min(axis=0)), np.abs(X.max(axis=0)))
 
 
 #: Largest magnitude of a design value: sums of squares of larger ones overflow in doubles.
@@ -333,9 +342,10 @@ def check_magnitudes(X, names):
     """Refuse design columns with values too large for double-precision moments."""
     if not X.size:
         return
-    big = np.abs(X).max(axis=0) > MAX_MAGNITUDE
+    peaks = _column_peaks(X)
+    big = peaks > MAX_MAGNITUDE
     if big.any():
-        detail = ", ".join(f"{c} (up to {np.abs(X[:, j]).max():.3g})" for j, c in enumerate(names) if big[j])
+        detail = ", ".join(f"{c} (up to {peaks[j]:.3g})" for j, c in enumerate(names) if big[j])
         raise OrdinalDataError(f"predictor values beyond {MAX_MAGNITUDE:.0e} cannot be fitted in double "
                                f"precision: {detail}; rescale those columns")
 
