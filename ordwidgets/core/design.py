@@ -112,8 +112,6 @@ def _check_levels_agree(s, levels, name):
             f"{list(levels)!r}; drop levels= or reorder the column (s.cat.reorder_categories)")
 
 
-
-
 def check_mixed_types(data, columns):
     for c in columns:
         col = data[c]
