@@ -300,7 +300,7 @@ def prepare(formula, data, *, weights=None, levels=None):
     warr = None if w is None else w[keep.to_numpy()].to_numpy(float)
     finite, more = _finite_design_rows(X, names)
     if finite is not None:
-        data, X, y = data[finite], X[finite], y[finite]
+        data, X, y = data[finite], np.asfortranarray(X[finite]), y[finite]
         warr = None if warr is None else warr[finite]
     check_magnitudes(X, names)
     y, lv, levels_notes = _drop_empty_levels(y, lv, warr, response)
