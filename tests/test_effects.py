@@ -113,3 +113,23 @@ def test_intervals_for_other_kinds_are_refused():
     res = ow.fit("y ~ x", df)
     with pytest.raises(ValueError, match="kind='probabilities' or 'cumulative'"):
         res.predict(df, kind="latent", level=0.9)
+
+
+@pytest.mark.parametrize("options", [dict(), dict(scale_by=["x"]), dict(nonparallel=["x"], scale_by=["x"])])
+def test_analytic_marginal_effect_of_a_number_equals_scipy_differentiate(options):
+    # Reference: scipy.differentiate.derivative of the averaged public predictions with x
+    # shifted by t, at t = 0 (x in the location, the scale and per threshold in turn).
+    from scipy import differentiate
+
+    df = mixed_data(n=250, seed=5)
+    res = ow.fit("y ~ x + g + C(f)", df, **options)
+    ame = res.average_marginal_effects()
+
+    def mean_prob(t, k):
+        t = np.asarray(t, float)
+        vals = [res.predict(df.assign(x=df.x + v)).to_numpy()[:, k].mean() for v in t.ravel()]
+        return np.array(vals).reshape(t.shape)
+
+    for k in range(len(res.levels)):
+        ref = differentiate.derivative(lambda t: mean_prob(t, k), 0.0, initial_step=0.01).df
+        assert ame.loc["x", "effect"].iloc[k] == pytest.approx(float(ref), abs=1e-9)

@@ -215,3 +215,25 @@ def test_refits_refuse_a_display_sample_of_the_rows():
     with pytest.raises(ValueError, match="proportional-odds test needs every fitted row"):
         sampled.proportional_odds_test()
     assert np.all(np.isfinite(sampled.intervals().to_numpy()))  # Wald needs no rows
+
+
+def test_compare_links_of_a_result_uses_its_formula_rows_and_weights():
+    # Reference: the same table from the formula, data and weights written out (the
+    # log-likelihoods of ow.fit for each link, weighted by the column).
+    df, _, _ = small_data(seed=9, link="probit")
+    df = df.assign(w=np.random.default_rng(9).integers(1, 4, len(df)).astype(float))
+    res = ow.fit("y ~ x + v", df, link="cloglog", weights="w")
+    table = ow.compare_links(res)
+    explicit = ow.compare_links("y ~ x + v", df, weights="w")
+    assert list(table.index) == list(explicit.index)
+    np.testing.assert_allclose(table["loglik"], explicit["loglik"], rtol=1e-12)
+    assert table.loc["cloglog", "loglik"] == res.loglik
+    for name in table.index:
+        assert table.loc[name, "loglik"] == pytest.approx(ow.fit("y ~ x + v", df, link=name, weights="w").loglik,
+                                                          rel=1e-12)
+    assert table.columns.name == table.attrs["weighting"] == "weighted by column 'w'"
+    plain = ow.compare_links(ow.fit("y ~ x + v", df))
+    assert plain.attrs["weighting"] == "unweighted"
+    assert not np.allclose(plain.sort_index()["loglik"], table.sort_index()["loglik"])
+    with pytest.raises(ValueError, match="takes its data and options from the fit"):
+        ow.compare_links(res, weights="w")

@@ -10,6 +10,7 @@ from sklearn.linear_model import LogisticRegression
 import ordwidgets as ow
 
 from . import reference as R
+from . import reference_extended as RE
 
 
 def parallel_data(n, seed, beta=(0.7, -0.5)):
@@ -19,13 +20,14 @@ def parallel_data(n, seed, beta=(0.7, -0.5)):
 
 def test_lr_rows_equal_explicit_refits_and_probability_changes():
     # Each row is the LR comparison with that predictor freed (ow.compare on explicit fits);
-    # the probability change is read off the two fits' public predictions.
+    # the probability change is read off the two fits' public predictions.  The explicit fits
+    # run to a tight Newton decrement so that their own error stays below the tolerances.
     df = parallel_data(300, seed=1)
-    res = ow.fit("y ~ x + v", df)
+    res = ow.fit("y ~ x + v", df, tol=1e-15)
     table = res.proportional_odds_test()
     assert list(table.index) == ["x", "v", "(overall)"]
     for name, free in (("x", ["x"]), ("v", ["v"]), ("(overall)", ["x", "v"])):
-        other = ow.fit("y ~ x + v", df, nonparallel=free)
+        other = ow.fit("y ~ x + v", df, nonparallel=free, tol=1e-15)
         lr = ow.compare(res, other).loc["larger"]
         assert table.loc[name, "statistic"] == pytest.approx(lr["statistic"], rel=1e-6, abs=1e-8)
         assert table.loc[name, "df"] == lr["df"] == 2 * len(free)
@@ -35,7 +37,7 @@ def test_lr_rows_equal_explicit_refits_and_probability_changes():
         assert table.loc[name, "mean_prob_change"] == pytest.approx(change.max(axis=1).mean(), rel=1e-6)
 
 
-def _brant_reference(X, y):
+def _brant_reference(X, y, groups=None):
     """Brant (1990), Biometrics 46:1171-1178, sec. 3, written from the paper: separate logistic
     fits (scikit-learn, no penalty) of 1(y > j) and
     Var(b_j, b_l) = (X'W_jj X)^-1 X'W_jl X (X'W_ll X)^-1 with W_jl = diag(pi_l - pi_j pi_l), l >= j.
@@ -54,7 +56,8 @@ def _brant_reference(X, y):
             V[j * k:(j + 1) * k, l * k:(l + 1) * k] = block
             V[l * k:(l + 1) * k, j * k:(j + 1) * k] = block.T
     out = {}
-    for name, cols in (("x", [1]), ("v", [2]), ("(overall)", [1, 2])):
+    groups = {"x": [1], "v": [2], "(overall)": [1, 2]} if groups is None else groups
+    for name, cols in groups.items():
         C = np.array([np.eye(m * k)[c] - np.eye(m * k)[j * k + c] for c in cols for j in range(1, m)])
         d = C @ B.ravel()
         out[name] = float(d @ np.linalg.solve(C @ V @ C.T, d))
@@ -121,3 +124,65 @@ def test_large_n_flags_a_trivial_departure_that_barely_moves_probabilities():
     row = ow.fit("y ~ x", df).proportional_odds_test().loc["x"]
     assert row["p_value"] < 1e-3 and row["brant_p_value"] < 1e-3
     assert row["max_prob_change"] < 0.03 and row["mean_prob_change"] < 0.015
+
+
+def _factor_data(n=600, seed=7):
+    rng = np.random.default_rng(seed)
+    g = rng.choice(["oak", "elm", "ash", "yew"], n)
+    x = rng.normal(size=n)
+    shift = pd.Series(g).map({"oak": 0.0, "elm": 0.5, "ash": -0.4, "yew": 0.2}).to_numpy()
+    u = stats.logistic.ppf(rng.uniform(size=n))
+    # the elm effect differs between the cuts: a real departure for the factor jointly
+    cuts = np.array([-0.8, 0.3, 1.3])[None, :] + np.where(g == "elm", 1.0, 0.0)[:, None] * np.array([0.6, 0.0, -0.6])
+    y = (u[:, None] + x[:, None] * 0.7 + shift[:, None] > cuts).sum(axis=1)
+    return pd.DataFrame({"y": y, "x": x, "g": pd.Categorical(g, categories=["oak", "elm", "ash", "yew"])})
+
+
+def test_a_factor_is_tested_jointly_against_an_independent_non_parallel_fit():
+    # Reference: the partial proportional odds likelihood (Peterson & Harrell 1990) written
+    # with scipy.stats CDFs in tests/reference_extended.py and maximised by scipy.optimize
+    # (Nelder-Mead then BFGS), the factor's three dummies free at every threshold; the LR
+    # statistic against the parallel fit has (J - 2) * 3 = 6 degrees of freedom.
+    df = _factor_data()
+    res = ow.fit("y ~ x + g", df)
+    table = res.proportional_odds_test()
+    assert list(table.index) == ["x", "g", "(overall)"]
+    X, D = df[["x"]].to_numpy(), res.training.X[:, 1:]
+    m = res.n_thresholds
+    start = np.concatenate([res.params[:m], res.params[m:m + 1], np.repeat(res.params[m + 1:], m)])
+    _, ll_free = RE.fit(X, D, np.empty((len(df), 0)), res.training.y, "logit", start)
+    stat = 2 * (ll_free - res.loglik)
+    assert table.loc["g", "df"] == 6
+    assert table.loc["g", "statistic"] == pytest.approx(stat, abs=2e-4)
+    assert table.loc["g", "p_value"] == pytest.approx(stats.chi2.sf(stat, 6), rel=1e-3)
+    assert table.loc["g", "p_value"] < 0.01  # the simulated departure is found
+
+
+def test_detail_rows_free_one_level_at_a_time_and_agree_with_explicit_fits():
+    # Reference: ow.compare of the parallel fit against an explicit fit with only that dummy
+    # non-parallel (both run to a tight Newton decrement).
+    df = _factor_data()
+    res = ow.fit("y ~ x + g", df, tol=1e-15)
+    table = res.proportional_odds_test(detail=True)
+    dummies = ["g[T.elm]", "g[T.ash]", "g[T.yew]"]
+    assert list(table.index) == ["x", "g"] + dummies + ["(overall)"]
+    for d in dummies:
+        other = ow.fit("y ~ x + g", df, nonparallel=[d], tol=1e-15)
+        lr = ow.compare(res, other).loc["larger"]
+        assert table.loc[d, "statistic"] == pytest.approx(lr["statistic"], rel=1e-6, abs=1e-8)
+        assert table.loc[d, "df"] == 2
+    joint = ow.compare(res, ow.fit("y ~ x + g", df, nonparallel=["g"], tol=1e-15)).loc["larger"]
+    assert table.loc["g", "statistic"] == pytest.approx(joint["statistic"], rel=1e-6, abs=1e-8)
+
+
+def test_brant_rows_of_a_factor_match_the_published_construction():
+    # Reference: _brant_reference above (scikit-learn binary fits, Brant 1990 sec. 3), the
+    # factor's dummies tested jointly and each on its own.
+    df = _factor_data()
+    res = ow.fit("y ~ x + g", df)
+    table = res.proportional_odds_test(detail=True)
+    groups = {"x": [1], "g": [2, 3, 4], "g[T.elm]": [2], "g[T.ash]": [3], "g[T.yew]": [4], "(overall)": [1, 2, 3, 4]}
+    ref = _brant_reference(res.training.X, res.training.y, groups)
+    for name, stat in ref.items():
+        assert table.loc[name, "brant_statistic"] == pytest.approx(stat, rel=1e-5)
+        assert table.loc[name, "brant_df"] == 2 * len(groups[name])

@@ -54,7 +54,9 @@ def test_po_figures_beside_each_predictor(panel):
     texts = {name: row[3].value for name, row in panel._rows.items()}
     table = panel.state.fit.proportional_odds_test()  # reference: the core's test table
     assert f"{table.loc['dose', 'statistic']:.4g}" in texts["dose"]
-    assert "C(group)[T.&lt;script&gt;alert(1)&lt;/script&gt;]: χ² =" in texts["group"]
+    # a factor is tested jointly (one row per formula term); nothing data-derived unescaped
+    assert f"C(group): χ² = {table.loc['C(group)', 'statistic']:.4g}" in texts["group"]
+    assert "<script>" not in texts["group"] and "<script>" not in panel.po_overall.value
     overall = table.loc["(overall)"]
     assert f"χ² = {overall['statistic']:.4g} ({overall['df']:.3g} df)" in panel.po_overall.value
     # Brant's p and the largest probability change (the large-n caution) sit beside the LR figures.

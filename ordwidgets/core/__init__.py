@@ -26,7 +26,8 @@ __all__ += [
 ]
 
 from .exceptions import ComparisonError, CrossingError, CrossingWarning  # noqa: E402
-from .inference import compare, compare_links  # noqa: E402
+from .inference import compare  # noqa: E402
+from .link_ranking import compare_links  # noqa: E402
 
 __all__ += ["compare", "compare_links", "CrossingError", "CrossingWarning", "ComparisonError"]
 

@@ -20,8 +20,8 @@ from .exceptions import CrossingWarning
 from .layout import cumulative_predictors, end_jacobian, layout_of
 from .probabilities import interval_probability
 
-__all__ = ["probabilities_at", "probability_jacobian", "prediction_intervals", "average_marginal_effects",
-           "logit_interval", "wald_bounds", "check_level"]
+__all__ = ["probabilities_at", "probability_jacobian", "probability_variances", "prediction_intervals",
+           "averaged_probabilities", "logit_interval", "logit_interval_of_variance", "wald_bounds", "check_level"]
 
 
 def wald_bounds(estimate, std_error, level):
@@ -79,16 +79,88 @@ def probability_jacobian(res, D, params=None):
     return probabilities_at(res, D, params), np.diff(dC, axis=1)
 
 
+def averaged_probabilities(res, D, weights):
+    """Weighted mean probabilities ``(J,)`` over the rows of ``D`` and their gradient ``(J, P)``.
+
+    The gradient of the mean cumulative probability ``sum_i w_i F(u_ij)`` is
+    ``sum_i w_i f(u_ij) du_ij``; ``du_ij`` is ``1 / sigma_i`` times ``e_j``, ``-x_i`` and
+    ``-w_i`` (at threshold ``j``) for thresholds, parallel and per-threshold effects, and
+    ``-u_ij z_i`` for scale effects, so each threshold costs one product with the design
+    (no ``(n, J, P)`` array).  ``weights`` should sum to one.
+    """
+    layout = layout_of(res)
+    X, W, Z = layout.arrays(D)
+    U, sigma = cumulative_predictors(layout, res.params, D)
+    f = res.link.pdf(U)
+    m = layout.m
+    tb, bb, gb, zb = layout.blocks()
+    C = np.zeros((m + 2, layout.n_params))
+    for j in range(m):
+        a = weights * f[:, j] / sigma
+        C[j + 1, j] = a.sum()
+        C[j + 1, bb] = -(a @ X)
+        C[j + 1, gb.start + j:gb.stop:m] = -(a @ W)
+        C[j + 1, zb] = -((weights * f[:, j] * U[:, j]) @ Z)
+    return weights @ probabilities_at(res, D), np.diff(C, axis=0)
+
+
 def logit_interval(est, G, cov, level):
     """Interval for probabilities ``est`` with gradients ``G``, built on the logit scale."""
-    var = np.einsum("njp,pq,njq->nj", G, cov, G)
-    q = stats.norm.isf((1 - level) / 2)
+    var = np.sum((G @ cov) * G, axis=-1)
+    return logit_interval_of_variance(est, var, level)
+
+
+def logit_interval_of_variance(est, var, level):
+    """``expit(logit(p) -+ z sqrt(var) / (p (1 - p)))``; zero width where ``p`` is 0 or 1."""
     with np.errstate(divide="ignore", invalid="ignore"):
-        half = q * np.sqrt(np.maximum(var, 0.0)) / (est * (1 - est))
-        centre = special.logit(est)
-        lower, upper = special.expit(centre - half), special.expit(centre + half)
+        low, high = wald_bounds(special.logit(est), np.sqrt(np.maximum(var, 0.0)) / (est * (1 - est)), level)
+        lower, upper = special.expit(low), special.expit(high)
     edge = (est <= 0) | (est >= 1)
     return np.where(edge, est, lower), np.where(edge, est, upper)
+
+
+def probability_variances(res, D, *, cumulative=False, chunk=4096):
+    """Probabilities ``(n, J)`` and their delta-method variances ``g' V g`` (no ``(n, J, P)`` array).
+
+    For a parallel fit the cumulative gradient is ``c_j = f(u_j) [e_j; -x]``, so
+    ``c_j' V c_l = f_j f_l (V_jl - r_j - r_l + x'V_bb x)`` with ``r = X V_bt``: one
+    ``n x p x p`` product in all.  Other layouts use the full gradients, a chunk of rows at
+    a time.
+    """
+    layout = layout_of(res)
+    if layout.is_parallel:
+        return _parallel_variances(res, np.asarray(D, float), cumulative)
+    est, var = [], []
+    for s in range(0, len(D), chunk):
+        p, G = probability_jacobian(res, D[s:s + chunk])
+        if cumulative:
+            p, G = np.cumsum(p, axis=1), np.cumsum(G, axis=1)
+        est.append(p)
+        var.append(np.sum((G @ res.cov) * G, axis=-1))
+    J = len(res.levels)
+    return (np.vstack(est) if est else np.empty((0, J))), (np.vstack(var) if var else np.empty((0, J)))
+
+
+def _parallel_variances(res, X, cumulative):
+    m, V = res.n_thresholds, res.cov
+    Vtt, Vbt, Vbb = V[:m, :m], V[m:, :m], V[m:, m:]
+    U, _ = cumulative_predictors(layout_of(res), res.params, X)
+    f = res.link.pdf(U)
+    s = np.sum((X @ Vbb) * X, axis=1) if X.shape[1] else np.zeros(len(X))
+    R = X @ Vbt if X.shape[1] else np.zeros((len(X), m))
+    Q = np.diag(Vtt)[None, :] - 2 * R + s[:, None]
+    P = probabilities_at(res, X)
+    if cumulative:
+        n = len(X)
+        return np.column_stack([np.cumsum(P, axis=1)[:, :m], np.ones(n)]), np.column_stack(
+            [f ** 2 * Q, np.zeros(n)])
+    cross = np.diag(Vtt, 1)[None, :] - R[:, :-1] - R[:, 1:] + s[:, None]
+    fQ = f ** 2 * Q
+    var = np.zeros((len(X), m + 1))
+    var[:, :m] += fQ
+    var[:, 1:] += fQ
+    var[:, 1:m] -= 2 * f[:, 1:] * f[:, :-1] * cross
+    return P, var
 
 
 def prediction_intervals(res, data=None, *, kind="probabilities", level=0.95):
@@ -116,81 +188,12 @@ def prediction_intervals(res, data=None, *, kind="probabilities", level=0.95):
     check_level(level)
     if kind not in ("probabilities", "cumulative"):
         raise ValueError(f"intervals are available for kind='probabilities' or 'cumulative', got {kind!r}")
-    D = res.design(data)
-    est, G = probability_jacobian(res, D)
+    est, var = probability_variances(res, res.design(data), cumulative=kind == "cumulative")
     if kind == "cumulative":
-        est, G = np.cumsum(est, axis=1).clip(0, 1), np.cumsum(G, axis=1)
-        est[:, -1] = 1.0
-    lower, upper = logit_interval(est, G, res.cov, level)
+        est = est.clip(0, 1)
+        est[:, -1], var[:, -1] = 1.0, 0.0
+    lower, upper = logit_interval_of_variance(est, var, level)
     cols = pd.MultiIndex.from_product([["estimate", "lower", "upper"], [str(v) for v in res.levels]],
                                       names=["part", "level"])
     index = res._index(data, len(est))
     return pd.DataFrame(np.hstack([est, lower, upper]), index=index, columns=cols)
-
-
-def _siblings(res, column):
-    """Other columns of the same formula term (dummies of one factor)."""
-    spec = res.model_spec
-    if spec is None:
-        return []
-    names = list(spec.column_names)
-    for idx in spec.term_indices.values():
-        cols = [names[i] for i in idx]
-        if column in cols:
-            return [c for c in cols if c != column]
-    return []
-
-
-def _counterfactuals(res, D, c):
-    """Two designs whose averaged difference is the effect of column ``c`` (and the divisor)."""
-    layout = layout_of(res)
-    col = D[:, c]
-    if np.all(np.isin(col, (0.0, 1.0))):
-        lo, hi = D.copy(), D.copy()
-        for s in _siblings(res, layout.columns[c]):
-            if s in layout.columns and np.all(np.isin(D[:, layout.columns.index(s)], (0.0, 1.0))):
-                lo[:, layout.columns.index(s)] = hi[:, layout.columns.index(s)] = 0.0
-        lo[:, c], hi[:, c] = 0.0, 1.0
-        return lo, hi, 1.0, "change 0 -> 1"
-    h = 1e-4 * max(float(np.std(col)), 1e-8)
-    lo, hi = D.copy(), D.copy()
-    lo[:, c] -= h
-    hi[:, c] += h
-    return lo, hi, 2 * h, "derivative"
-
-
-def average_marginal_effects(res):
-    """Average marginal effect of each design column on each category probability.
-
-    For a numeric column, the weighted mean over the training rows of ``dP(Y = j)/dx`` (a
-    central difference of step ``1e-4`` standard deviations, other columns held fixed).  For
-    a 0/1 column, the mean discrete change ``P(Y = j | x = 1) - P(Y = j | x = 0)``; for the
-    dummies of a factor, the change from the reference level to that level (the other
-    dummies of the factor set to 0).  Effects sum to zero over the levels.  Standard errors
-    by the delta method with analytic derivatives of the probabilities.
-
-    Returns
-    -------
-    pandas.DataFrame
-        One row per design column; columns a two-level MultiIndex ``(part, level)`` with
-        ``part`` in ``"effect"``, ``"std_error"``; ``frame.attrs["kind"]`` says which rows are
-        derivatives and which discrete changes.
-    """
-    tr = res.training_rows()
-    layout = layout_of(res)
-    w = np.ones(len(tr.y)) if tr.weights is None else tr.weights
-    w = w / w.sum()
-    effects, ses, kinds = [], [], {}
-    for c, name in enumerate(layout.columns):
-        lo, hi, div, kinds[name] = _counterfactuals(res, tr.X, c)
-        (p0, g0), (p1, g1) = probability_jacobian(res, lo), probability_jacobian(res, hi)
-        eff = w @ (p1 - p0) / div
-        grad = np.einsum("n,njp->jp", w, g1 - g0) / div
-        effects.append(eff)
-        ses.append(np.sqrt(np.maximum(np.einsum("jp,pq,jq->j", grad, res.cov, grad), 0.0)))
-    cols = pd.MultiIndex.from_product([["effect", "std_error"], [str(v) for v in res.levels]],
-                                      names=["part", "level"])
-    data = np.hstack([np.array(effects), np.array(ses)]) if effects else np.empty((0, len(cols)))
-    out = pd.DataFrame(data, index=pd.Index(layout.columns, name="predictor"), columns=cols)
-    out.attrs["kind"] = kinds
-    return out

@@ -209,8 +209,17 @@ def _explainer(layout, design):
     return explain
 
 
-def fit_layout(layout, D, y, weights, link, *, max_iter=100, tol=1e-10, callback=None, what="fit", warn=True):
+def fit_layout(layout, D, y, weights, link, *, max_iter=100, tol=1e-10, callback=None, what="fit", warn=True,
+               start=None, columns=None):
     """Maximise the likelihood of one layout on a full design ``D`` (user-scale answer).
+
+    Parameters
+    ----------
+    start : ndarray, optional
+        Feasible starting point on the user's scale (a warm start, e.g. a nested fit's
+        estimates); default the closed-form thresholds and zero effects.
+    columns : SortedColumns, optional
+        Passed to :func:`layout_design` (rows sorted by ``y`` once for several fits).
 
     Returns
     -------
@@ -221,9 +230,23 @@ def fit_layout(layout, D, y, weights, link, *, max_iter=100, tol=1e-10, callback
     CrossingError
         If the maximum needs crossing cumulative probabilities for observed rows.
     """
-    design, to_user = layout_design(layout, D, y, weights)
-    return maximise(design, link, to_user=to_user, names=layout.param_names(), max_iter=max_iter, tol=tol,
+    design, to_user = layout_design(layout, D, y, weights, columns=columns)
+    engine_design = design if start is None else _StartedAt(design, np.linalg.solve(to_user, start))
+    return maximise(engine_design, link, to_user=to_user, names=layout.param_names(), max_iter=max_iter, tol=tol,
                     callback=callback, what=what, warn=warn, explain_failure=_explainer(layout, design))
+
+
+class _StartedAt:
+    """A design with its own starting point (the optional ``start`` of the design protocol)."""
+
+    def __init__(self, design, start):
+        self._design, self._start = design, start
+
+    def __getattr__(self, name):
+        return getattr(self._design, name)
+
+    def start(self, link):
+        return self._start
 
 
 def crossing_in_range(layout, params, D):

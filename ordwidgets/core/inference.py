@@ -19,13 +19,13 @@ import pandas as pd
 from scipy import optimize, stats
 
 from .effects import check_level, wald_bounds
-from .exceptions import ComparisonError, ConvergenceWarning, CrossingError
-from .layout import ExtendedDesign, all_training_rows, layout_of
-from .links import get_link, link_names
+from .exceptions import ComparisonError, ConvergenceWarning
+from .extended_fit import layout_design
+from .layout import all_training_rows, layout_of
+from .objective import SortedColumns, sort_by_category
 from .optimize import newton_maximize
-from .summary import weighting_of
 
-__all__ = ["intervals", "wald_intervals", "profile_intervals", "compare", "compare_links"]
+__all__ = ["intervals", "wald_intervals", "profile_intervals", "compare"]
 
 _MAX_DOUBLINGS = 10
 
@@ -70,15 +70,22 @@ class _Profile:
             return None
         link = self.res.link
 
-        def evaluate(v, order):
+        last = {}
+
+        def evaluate_keeping(v, order):  # keeps d loglik / d param_k of the last full evaluation
             ll, g, H = self.design.sums(link, self._full(t, v), order=order)
+            if g is not None:
+                last["slope"] = (v.copy(), float(g[self.k]))
             return ll, None if g is None else g[self.free], None if H is None else H[np.ix_(self.free, self.free)]
 
-        out = newton_maximize(evaluate, rest, feasible=lambda v: self.design.feasible(self._full(t, v)),
+        out = newton_maximize(evaluate_keeping, rest, feasible=lambda v: self.design.feasible(self._full(t, v)),
                               max_iter=200, tol=1e-12)
         full = self._full(t, out.params)
         self.solved.append((t, full))
-        return out.loglik, float(self.design.sums(link, full, order=1)[1][self.k])
+        at, slope = last.get("slope", (None, None))
+        if at is None or not np.array_equal(at, out.params):
+            slope = float(self.design.sums(link, full, order=1)[1][self.k])
+        return out.loglik, slope
 
     def signed_root(self, t):
         """``sign(t - est) sqrt(2 (loglik_max - loglik_profile(t)))`` and its slope in ``t``."""
@@ -136,6 +143,18 @@ def _profile_end(prof, sign, z, se):
     return sign * np.inf
 
 
+def user_scale_design(res):
+    """The engine's sorted design of the training rows on the user's scale (no standardising),
+    so that profiling one parameter fixes one coordinate."""
+    tr = res.training_rows()
+    layout = layout_of(res)
+    order, bounds = sort_by_category(tr.y, layout.m + 1)
+    Xs = np.asfortranarray(tr.X[order])
+    d = Xs.shape[1]
+    cols = SortedColumns(Xs, np.zeros(d), np.ones(d), np.eye(d), None, None)
+    return layout_design(layout, tr.X, tr.y, tr.weights, columns=cols)[0]
+
+
 def profile_intervals(res, level=0.95, *, which=None):
     """Profile-likelihood intervals (rows aligned with ``res.std_errors``).
 
@@ -146,8 +165,8 @@ def profile_intervals(res, level=0.95, *, which=None):
     """
     check_level(level)
     tr = all_training_rows(res, "a profile interval")
-    design = ExtendedDesign(layout_of(res), tr.X, tr.y, tr.weights)
-    z = stats.norm.isf((1 - level) / 2)
+    design = user_scale_design(res)
+    z = float(wald_bounds(0.0, 1.0, level)[1])  # the normal quantile of the Wald interval
     se = res.std_errors.to_numpy()
     out = np.full((res.n_params, 2), np.nan)
     wanted = res.names if which is None else list(which)
@@ -267,63 +286,3 @@ def compare(smaller, larger):
          "p_value": [np.nan, float(stats.chi2.sf(stat, df)) if stat >= 0 else np.nan]},
         index=["smaller", "larger"],
     )
-
-
-# ---- link comparison ---------------------------------------------------------------------
-def _fit_quietly(formula, data, name, kwargs):
-    """One fit with its warnings caught; returns a row of the link table and the warnings."""
-    from .fitting import fit
-
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        try:
-            res = fit(formula, data, link=name, **kwargs)
-        except CrossingError as exc:
-            row = {"loglik": np.nan, "aic": np.nan, "bic": np.nan, "converged": False,
-                   "n_params": np.nan, "message": str(exc)}
-        else:
-            row = {"loglik": res.loglik, "aic": res.aic, "bic": res.bic, "converged": res.converged,
-                   "n_params": res.n_params, "message": res.message}
-    return row, caught
-
-
-def compare_links(formula, data, *, link=None, weights=None, levels=None, nonparallel=None,
-                  scale_by=None, max_iter=100):
-    """Fit the same model with several links and rank them.
-
-    Parameters
-    ----------
-    link : str or sequence of str, optional
-        Links to compare (default: all of :func:`~ordwidgets.core.links.link_names`).
-    weights, levels, nonparallel, scale_by, max_iter
-        Passed to :func:`~ordwidgets.core.fitting.fit` for every link.
-
-    Returns
-    -------
-    pandas.DataFrame
-        Indexed by link name (index name ``"link"``); columns ``loglik``, ``aic``, ``bic``,
-        ``converged``, ``n_params``, ``message``.  Sorted best first: converged fits
-        before the others, then by AIC (every link has the same number of parameters, so
-        this is also the order of the log-likelihood).  Convergence problems are reported
-        in the table instead of as warnings; data warnings are raised once.  The column
-        index is named after the weighting (``"unweighted"`` or ``"weighted by column
-        'count'"``, also in ``table.attrs["weighting"]``), so the printed table says whether
-        the links were compared on the weighted fit.
-    """
-    names = link_names() if link is None else [link] if isinstance(link, str) else list(link)
-    kwargs = {"weights": weights, "levels": levels, "nonparallel": nonparallel, "scale_by": scale_by,
-              "max_iter": max_iter}
-    rows, seen = {}, set()
-    for name in names:
-        lk = get_link(name)
-        rows[lk.name], caught = _fit_quietly(formula, data, lk.name, kwargs)
-        for w in caught:
-            if not issubclass(w.category, ConvergenceWarning) and str(w.message) not in seen:
-                seen.add(str(w.message))
-                warnings.warn(w.message, w.category, stacklevel=2)
-    table = pd.DataFrame.from_dict(rows, orient="index")
-    table.index.name = "link"
-    key = table.assign(_bad=~table["converged"].astype(bool), _aic=table["aic"].fillna(np.inf))
-    table = table.loc[key.sort_values(["_bad", "_aic"], kind="stable").index]
-    table.columns.name = table.attrs["weighting"] = weighting_of(weights)
-    return table

@@ -269,16 +269,17 @@ class FitResult:
 
         return intervals(self, level=level, method=method)
 
-    def proportional_odds_test(self) -> pd.DataFrame:
-        """Likelihood-ratio and Brant tests of parallel effects, per predictor and overall.
+    def proportional_odds_test(self, *, detail=False) -> pd.DataFrame:
+        """Likelihood-ratio and Brant tests of parallel effects, per formula term and overall.
 
-        With many rows trivial departures become significant: judge a small p-value by the
+        A factor's dummies are tested jointly; ``detail=True`` adds one row per dummy.  With
+        many rows trivial departures become significant: judge a small p-value by the
         ``max_prob_change`` / ``mean_prob_change`` columns (see
         :mod:`ordwidgets.core.potest`).
         """
         from .potest import proportional_odds_test
 
-        return proportional_odds_test(self)
+        return proportional_odds_test(self, detail=detail)
 
     def term_tests(self, *, likelihood_ratio=True) -> pd.DataFrame:
         """Likelihood-ratio and Wald tests of each formula term (a factor's dummies jointly).
@@ -315,7 +316,7 @@ class FitResult:
 
     def average_marginal_effects(self) -> pd.DataFrame:
         """Average marginal effects on each category probability, with delta-method SEs."""
-        from .effects import average_marginal_effects
+        from .marginal_effects import average_marginal_effects
 
         return average_marginal_effects(self)
 
