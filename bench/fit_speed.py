@@ -11,7 +11,7 @@ All timings in one run on the same data: n = 200,000 rows, 10 predictors, 5 leve
 - L-BFGS-B on our kernel: the same optimiser on ordwidgets' own segmented gradient, which
   isolates what Newton's method buys over a quasi-Newton method;
 - floor: one weighted Gram product ``X'WX`` in numpy, the least any Newton step must do.
-Minimum over repeats (the least disturbed run; the machine is shared and noisy), with the
+Minimum over repeats (the least disturbed run; medians of ours and the floor too; the machine is shared and noisy), with the
 load average printed beside them: read the ratios, which come from the same run.
 Then n = 1,000,000: fit time and peak traced memory relative to the design matrix.
 """
@@ -49,12 +49,17 @@ def make_data(n, p=10, seed=0):
 
 def best_time(fn, repeats):
     """Smallest wall time of ``repeats`` calls (the run least disturbed by other jobs)."""
+    return wall_times(fn, repeats).min()
+
+
+def wall_times(fn, repeats):
+    """Wall times of ``repeats`` calls (seconds)."""
     times = []
     for _ in range(repeats):
         t = time.perf_counter()
         fn()
         times.append(time.perf_counter() - t)
-    return min(times)
+    return np.array(times)
 
 
 def _unpack(z, m):
@@ -126,11 +131,13 @@ def main(quick=False):
     ext = ow.fit(formula, df, **extended)
     w = np.random.default_rng(1).random(n)
     load = os.getloadavg()[0]
-    t_ours = best_time(lambda: ow.fit(formula, df), 7)
+    ours = wall_times(lambda: ow.fit(formula, df), 7)
+    t_ours = ours.min()
     t_ext = best_time(lambda: ow.fit(formula, df, **extended), 5)
     t_generic = best_time(lambda: generic_fit(X, y), 3)
     t_kernel = best_time(lambda: kernel_lbfgs_fit(X, y), 3)
-    t_floor = best_time(lambda: floor(X, w), 21)
+    floors = wall_times(lambda: floor(X, w), 21)
+    t_floor = floors.min()
     ll_generic, nit = generic_fit(X, y)
     ll_kernel, nit_k = kernel_lbfgs_fit(X, y)
     print(f"n = {n:,}, p = 10, J = 5, logit (minimum of repeats; load average {load:.1f} -> "
@@ -144,6 +151,8 @@ def main(quick=False):
     print(f"  floor     {t_floor * 1e3:8.2f} ms  (one X'WX)")
     print(f"  generic / ours = {t_generic / t_ours:.2f}   kernel L-BFGS-B / ours = {t_kernel / t_ours:.2f}   "
           f"ours / floor = {t_ours / t_floor:.1f} floors   extended / ours = {t_ext / t_ours:.2f}")
+    print(f"  medians: ours {np.median(ours) * 1e3:.1f} ms, floor {np.median(floors) * 1e3:.2f} ms, "
+          f"ours / floor = {np.median(ours) / np.median(floors):.1f} floors")
     big = 200_000 if quick else 1_000_000
     df, X, y = make_data(big, seed=2)
     del X, y
