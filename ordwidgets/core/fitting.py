@@ -26,7 +26,8 @@ __all__ = ["fit", "fit_dask"]
 
 
 def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100, tol=1e-10,
-        keep_data=True, callback=None, nonparallel=None, scale_by=None):
+        keep_data=True, callback=None, nonparallel=None, scale_by=None, random_intercepts=None,
+        quadrature=None, cluster=None, weight_kind="frequency"):
     """Fit a cumulative link model by maximum likelihood.
 
     ``P(Y <= j | x) = F(theta_j - x'beta)``, ``j = 1..J-1``, with strictly increasing
@@ -64,6 +65,16 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
         that are not in the formula enter the scale only.  See
         :mod:`ordwidgets.core.extended_fit`.
 
+    random_intercepts, quadrature
+        Grouping columns with a normal random intercept each, and the quadrature points;
+        see :func:`ordwidgets.core.random_intercepts.fit_random_intercepts`.
+    cluster : str or array_like, optional
+        Cluster column: cluster-robust (sandwich) covariance, see
+        :mod:`ordwidgets.core.sandwich`.
+    weight_kind : {"frequency", "sampling"}
+        What ``weights`` are: counts of identical rows (model-based covariance) or survey
+        weights (same estimates, sandwich covariance that ignores the weights' scale).
+
     Returns
     -------
     FitResult
@@ -71,6 +82,13 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
         sums reduced over partitions; the result keeps a sample of rows for display).
     """
     check_arguments("fit", FIT_RULES, locals())
+    if random_intercepts is not None or quadrature is not None or cluster is not None or weight_kind != "frequency":
+        from .random_intercepts import fit_with_options
+
+        return fit_with_options(fit, formula, data, link=link, weights=weights, levels=levels, max_iter=max_iter,
+                                tol=tol, keep_data=keep_data, callback=callback, nonparallel=nonparallel,
+                                scale_by=scale_by, random_intercepts=random_intercepts, quadrature=quadrature,
+                                cluster=cluster, weight_kind=weight_kind)
     if is_dask_frame(data):
         return fit_dask(formula, data, link=link, weights=weights, levels=levels, max_iter=max_iter, tol=tol,
                         keep_data=keep_data, callback=callback, nonparallel=nonparallel, scale_by=scale_by)

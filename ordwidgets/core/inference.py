@@ -256,6 +256,8 @@ def compare(smaller, larger):
 
     ``statistic = 2 (loglik_larger - loglik_smaller)`` is referred to a chi-squared
     distribution with ``df`` = the difference in the number of parameters (Wilks 1938).
+    A plain fit against a random-intercept fit tests ``sigma = 0`` with the boundary
+    mixture (:func:`ordwidgets.core.mixed_results.compare_random_part`).
 
     Raises
     ------
@@ -269,6 +271,10 @@ def compare(smaller, larger):
         Rows ``"smaller"``, ``"larger"``; columns ``model``, ``n_params``, ``loglik``,
         ``statistic``, ``df``, ``p_value`` (the last three on the ``"larger"`` row).
     """
+    if getattr(larger, "groups", ()) and not getattr(smaller, "groups", ()):
+        from .mixed_results import compare_random_part
+
+        return compare_random_part(smaller, larger)
     _check_same_rows(smaller, larger)
     _check_nested(smaller, larger)
     df = larger.n_params - smaller.n_params

@@ -125,6 +125,13 @@ class FitResult:
         return pd.Series(se, index=self.names, name="std_error")
 
     @property
+    def covariance_type(self) -> str:
+        """``"model"`` (inverse observed information), ``"cluster"`` (cluster-robust sandwich)
+        or ``"sampling"`` (sandwich for sampling weights); see :mod:`ordwidgets.core.sandwich`.
+        Standard errors, Wald tests and intervals use this covariance."""
+        return self.options.get("covariance_type", "model")
+
+    @property
     def covariance(self) -> pd.DataFrame:
         """Estimated covariance matrix of all parameters."""
         return pd.DataFrame(self.cov, index=self.names, columns=self.names)

@@ -1,0 +1,374 @@
+"""The result of a random-intercept fit: variance components, group effects, predictions.
+
+A :class:`RandomInterceptFit` is a :class:`~ordwidgets.core.results.FitResult` whose
+``params``/``cov`` hold the thresholds and effects (the fixed part) and which adds the SD of
+each grouping column's random intercept, the conditional modes of the group effects and the
+marginal log-likelihood (``loglik``, integrated over the random intercepts).
+
+Three kinds of probability answer three different questions (``predict(groups=...)``):
+
+* ``"population"`` -- population-averaged: ``int P(Y = j | x, u) phi(u / sigma) du / sigma``,
+  the share of all groups' rows with these predictors;
+* ``"typical"`` -- a typical group, ``u = 0`` (its probabilities are more extreme than the
+  population average: averaging over groups flattens them);
+* ``"conditional"`` -- each row's own group, at its estimated effect (conditional mode).
+"""
+from __future__ import annotations
+
+import html
+from dataclasses import dataclass, field
+from functools import cached_property
+
+import numpy as np
+import pandas as pd
+from numpy.polynomial.hermite_e import hermegauss
+from scipy import optimize, special, stats
+
+from .design import threshold_labels
+from .exceptions import ComparisonError, OrdinalDataError
+from .optimize import newton_maximize
+from .probabilities import category_probabilities
+from .results import FitResult, TrainingData, render_html
+
+__all__ = ["RandomInterceptFit", "build_result", "compare_random_part", "GROUP_KINDS"]
+
+GROUP_KINDS = ("population", "typical", "conditional")
+_POPULATION_POINTS = 40
+
+
+@dataclass(frozen=True, eq=False)
+class RandomInterceptFit(FitResult):
+    """Cumulative link fit with a normal random intercept per group (Hedeker & Gibbons 1994).
+
+    ``P(Y <= j | x, u) = F(theta_j - x'beta - u_g)``, ``u_g ~ N(0, sigma^2)``; a positive
+    group effect, like a positive effect, moves probability towards higher categories.
+    ``loglik`` is the marginal log-likelihood (adaptive Gauss-Hermite quadrature, Pinheiro &
+    Bates 1995, ``options["quadrature"]`` points; 1 = Laplace).
+    """
+
+    groups: tuple = ()
+    sds: np.ndarray = field(default=None, repr=False)
+    full_cov: np.ndarray = field(default=None, repr=False)
+    group_labels: tuple = field(default=(), repr=False)
+    group_codes: tuple = field(default=(), repr=False)
+    group_modes: tuple = field(default=(), repr=False)
+    group_mode_se: tuple = field(default=(), repr=False)
+    likelihood: object = field(default=None, repr=False)
+    internal_params: np.ndarray = field(default=None, repr=False)
+
+    # ---- parameters ------------------------------------------------------------------------
+    @property
+    def n_params(self) -> int:
+        """Thresholds, effects and one SD per grouping column."""
+        return len(self.params) + len(self.groups)
+
+    @property
+    def group_sd(self) -> pd.Series:
+        """SD of the random intercept of each grouping column (latent scale)."""
+        return pd.Series(self.sds, index=list(self.groups), name="sd")
+
+    @cached_property
+    def variance_components(self) -> pd.DataFrame:
+        """One row per grouping column: ``sd``, 95% profile-likelihood ``lower``/``upper``, ``n_groups``.
+
+        The interval is where ``2 (loglik_max - loglik_profile(sd))`` reaches the 0.95 quantile
+        of chi-squared with 1 degree of freedom; ``lower`` is 0 when ``sd = 0`` is inside.
+        """
+        return self.sd_intervals(0.95)
+
+    def sd_intervals(self, level=0.95) -> pd.DataFrame:
+        """Variance components with a profile-likelihood interval of the SD at ``level``."""
+        lo, hi = _sd_profile_interval(self, level)
+        return pd.DataFrame({"sd": self.sds, "lower": [lo], "upper": [hi],
+                             "n_groups": [len(lab) for lab in self.group_labels]}, index=list(self.groups))
+
+    def group_effects(self, column=None) -> pd.DataFrame:
+        """Conditional modes of one grouping column's intercepts, indexed by group.
+
+        Columns ``estimate`` (mode of ``u_g`` given the group's rows, latent scale; positive =
+        towards higher categories), ``std_error`` (``sigma / sqrt(c_g)``, the SD of the
+        Laplace approximation to the conditional distribution) and ``n_rows``.
+        """
+        k = self._group_position(column)
+        codes = self.group_codes[k]
+        return pd.DataFrame({"estimate": self.group_modes[k], "std_error": self.group_mode_se[k],
+                             "n_rows": np.bincount(codes, minlength=len(self.group_labels[k]))},
+                            index=pd.Index(self.group_labels[k], name=self.groups[k]))
+
+    def _group_position(self, column):
+        if column is None:
+            return 0
+        if column not in self.groups:
+            raise OrdinalDataError(f"{column!r} is not a grouping column of this fit (grouping: {', '.join(self.groups)})")
+        return self.groups.index(column)
+
+    @property
+    def aic(self) -> float:
+        return -2.0 * self.loglik + 2.0 * self.n_params
+
+    @property
+    def bic(self) -> float:
+        return -2.0 * self.loglik + np.log(self.n_obs) * self.n_params
+
+    def table(self, level=0.95) -> pd.DataFrame:
+        """Fixed part as for plain fits, then one ``sd(<column>)`` row per grouping column.
+
+        The SD rows carry the estimate and its standard error; ``z`` and ``p_value`` are left
+        empty (a Wald test of an SD on its boundary is not valid: use
+        ``compare(plain, mixed)``) and the interval columns hold the profile interval.
+        """
+        tab = super().table(level)
+        vc = self.sd_intervals(level)
+        k = len(self.params)
+        se = np.sqrt(np.maximum(np.diag(self.full_cov)[k:], 0.0))
+        extra = pd.DataFrame(np.nan, index=[f"sd({g})" for g in self.groups], columns=tab.columns)
+        extra.iloc[:, 0], extra.iloc[:, 1] = self.sds, se
+        extra.iloc[:, -2], extra.iloc[:, -1] = vc["lower"].to_numpy(), vc["upper"].to_numpy()
+        return pd.concat([tab, extra])
+
+    def intervals(self, level=0.95, *, method="wald") -> pd.DataFrame:
+        """Wald intervals of the fixed part (profile intervals are given for the SDs only)."""
+        if method != "wald":
+            raise OrdinalDataError("random-intercept fits give profile intervals for the SDs only "
+                                   "(variance_components); use method='wald' for the fixed part")
+        return super().intervals(level, method="wald")
+
+    def proportional_odds_test(self):
+        raise OrdinalDataError("proportional-odds tests are not available for random-intercept fits yet")
+
+    def average_marginal_effects(self):
+        raise OrdinalDataError("average marginal effects are not available for random-intercept fits yet")
+
+    # ---- rows and predictions ----------------------------------------------------------------
+    def _training_offsets(self):
+        return sum(self.group_modes[k][self.group_codes[k]] for k in range(len(self.groups)))
+
+    def error_bounds(self, thresholds=None, coefficients=None):
+        """Latent intervals of the training rows *given the estimated group effects*.
+
+        ``(theta_{k-1} - x'beta - u_g, theta_k - x'beta - u_g]`` with ``u_g`` the conditional
+        mode.  Surrogate residuals (Liu & Zhang 2018) built on these are conditional
+        residuals: the group effects are plugged in as if known.  Under a correct model they
+        follow the link distribution only approximately -- the modes are shrunk towards 0
+        (most in small groups), so the residuals keep part of each group's effect and are a
+        little wider than the link distribution; with many rows per group the
+        approximation is close.  ``loglik_at`` is likewise the conditional log-likelihood.
+        """
+        lower, upper = super().error_bounds(thresholds, coefficients)
+        u = self._training_offsets()
+        return lower - u, upper - u
+
+    def predict(self, data=None, kind="probabilities", *, groups="population", level=None):
+        """Predictions for ``data`` (default: the training rows).
+
+        Parameters
+        ----------
+        kind : {"probabilities", "cumulative", "latent", "most_likely"}
+        groups : {"population", "typical", "conditional"}
+            Population-averaged (integrated over the random intercept), a typical group
+            (``u = 0``) or each row's own group at its conditional mode (``data`` must then
+            hold the grouping column; a group not seen in the fit is refused).
+        level : float, optional
+            Add delta-method intervals (logit scale, numerical derivatives in thresholds,
+            effects and SD; for ``"conditional"`` the group effects are taken as known).
+        """
+        if groups not in GROUP_KINDS:
+            raise OrdinalDataError(f"groups must be 'population', 'typical' or 'conditional', got {groups!r}")
+        X = self.design(data)
+        offset = self._offsets(data) if groups == "conditional" else np.zeros(len(X))
+        index = self._index(data, len(X))
+        full = np.concatenate([self.params, self.sds])
+        if kind == "latent":
+            return pd.Series(self._eta(X) + offset, index=index, name="latent")
+        cols = [str(v) for v in self.levels]
+        probs = self._probabilities(full, X, offset, groups)
+        if kind == "most_likely" or kind == "class":
+            return pd.Series(np.asarray(self.levels, dtype=object)[probs.argmax(axis=1)], index=index, name=kind)
+        if kind not in ("probabilities", "cumulative"):
+            raise ValueError(f"kind must be 'probabilities', 'cumulative', 'latent' or 'most_likely', got {kind!r}")
+        cum = kind == "cumulative"
+        est = np.cumsum(probs, axis=1).clip(0, 1) if cum else probs
+        if level is None:
+            return pd.DataFrame(est, index=index, columns=cols)
+        lower, upper = self._delta_interval(full, X, offset, groups, est, cum, level)
+        parts = pd.MultiIndex.from_product([["estimate", "lower", "upper"], cols], names=["part", "level"])
+        return pd.DataFrame(np.hstack([est, lower, upper]), index=index, columns=parts)
+
+    def _probabilities(self, full, X, offset, groups):
+        m = self.n_thresholds
+        theta, beta, sd = full[:m], full[m:len(self.params)], full[len(self.params):]
+        eta = (X @ beta if X.shape[1] else np.zeros(len(X))) + offset
+        if groups != "population":
+            return category_probabilities(self.link, theta, eta)
+        t, w = hermegauss(_POPULATION_POINTS)
+        w = w / w.sum()
+        return sum(wk * category_probabilities(self.link, theta, eta + float(sd.sum()) * tk) for tk, wk in zip(t, w))
+
+    def _delta_interval(self, full, X, offset, groups, est, cum, level):
+        """Delta method on the logit scale with a central-difference Jacobian."""
+        J = np.empty(est.shape + (len(full),))
+        for j in range(len(full)):
+            h = 1e-6 * max(1.0, abs(full[j]))
+            e = np.zeros(len(full))
+            e[j] = h
+            hi, lo = (self._probabilities(full + s * e, X, offset, groups) for s in (1.0, -1.0))
+            if cum:
+                hi, lo = np.cumsum(hi, axis=1), np.cumsum(lo, axis=1)
+            J[:, :, j] = (hi - lo) / (2 * h)
+        var = np.einsum("njp,pq,njq->nj", J, self.full_cov, J)
+        q = stats.norm.isf((1 - level) / 2)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            half = q * np.sqrt(np.maximum(var, 0.0)) / (est * (1 - est))
+            lower, upper = special.expit(special.logit(est) - half), special.expit(special.logit(est) + half)
+        edge = (est <= 0) | (est >= 1)
+        return np.where(edge, est, lower), np.where(edge, est, upper)
+
+    def _offsets(self, data):
+        if data is None:
+            return self._training_offsets()
+        total = np.zeros(len(data))
+        for k, col in enumerate(self.groups):
+            if col not in data.columns:
+                raise OrdinalDataError(f"groups='conditional' needs the grouping column {col!r} in the data")
+            pos = pd.Index(self.group_labels[k]).get_indexer(data[col])
+            if (pos < 0).any():
+                unseen = pd.unique(data[col].to_numpy()[pos < 0])[:5]
+                raise OrdinalDataError(f"group(s) of {col!r} not seen in the fit: {', '.join(map(str, unseen))}; "
+                                       "use groups='population' or 'typical' for them")
+            total += self.group_modes[k][pos]
+        return total
+
+    # ---- display --------------------------------------------------------------------------
+    def facts(self) -> dict:
+        facts = super().facts()
+        points = self.options.get("quadrature")
+        facts["random intercepts"] = ", ".join(self.groups)
+        facts["quadrature"] = "Laplace" if points == 1 else f"adaptive Gauss-Hermite, {points} points"
+        facts["log-likelihood"] = self.loglik
+        return facts
+
+    def __str__(self) -> str:
+        return super().__str__() + "\n\nVariance components (latent scale)\n" + self.variance_components.to_string()
+
+    def __repr__(self) -> str:
+        return super().__repr__().replace("<FitResult", "<RandomInterceptFit", 1)
+
+    def _repr_html_(self) -> str:
+        e = html.escape
+        vc = self.variance_components
+        rows = "".join(
+            f"<tr><td style='padding:2px 8px'>{e(str(g))}</td>"
+            + "".join(f"<td style='text-align:right;padding:2px 8px'>{v:.4g}</td>" for v in r[["sd", "lower", "upper"]])
+            + f"<td style='text-align:right;padding:2px 8px'>{int(r['n_groups']):,}</td></tr>"
+            for g, r in vc.iterrows())
+        block = ("<div class='ow-variance-components' style='margin-top:6px'><b>Random intercepts</b> "
+                 "(SD on the latent scale; 95% profile-likelihood interval)"
+                 "<table style='border-collapse:collapse'><tr><th>grouping</th><th>sd</th><th>lower</th>"
+                 f"<th>upper</th><th>groups</th></tr>{rows}</table></div>")
+        base = render_html(self)
+        return base[: -len("</div>")] + block + "</div>"
+
+
+def build_result(prep, lk, design, outcome, A, *, converged, message, condition, formula, groups, group_codes,
+                 group_labels, keep_data, options):
+    """Map an internal optimum to a :class:`RandomInterceptFit` on the user's scale."""
+    P = len(outcome.params)
+    k = P - 1
+    internal = np.array(outcome.params, float)
+    user = A @ internal
+    with np.errstate(invalid="ignore"):
+        try:
+            cov = A @ np.linalg.inv(-outcome.hess) @ A.T
+        except np.linalg.LinAlgError:
+            cov = np.full((P, P), np.nan)
+    sign = np.ones(P)
+    sign[k] = np.sign(user[k]) or 1.0
+    cov = cov * np.outer(sign, sign)
+    sd = abs(user[k])
+    out = design.evaluate(lk, internal, order=0)
+    modes = user[k] * out.modes
+    mode_se = sd / np.sqrt(out.curvature)
+    grad_user = np.linalg.solve(A.T, outcome.grad)
+    training = TrainingData(prep.X, prep.y, prep.weights, prep.index, frame=prep.frame) if keep_data else None
+    return RandomInterceptFit(
+        link=lk, levels=prep.levels, threshold_names=tuple(threshold_labels(prep.levels)), coef_names=prep.columns,
+        params=user[:k], cov=cov[:k, :k], loglik=float(outcome.loglik), n_obs=float(design.counts().sum()),
+        n_rows=int(len(prep.y)), iterations=outcome.iterations, converged=converged, message=message,
+        max_grad=float(np.max(np.abs(grad_user), initial=0.0)), condition=condition, formula=formula,
+        response=prep.response, model_spec=prep.model_spec, notes=tuple(prep.notes), training=training,
+        options={**options, "random_intercepts": list(groups), "covariance_type": "model"},
+        groups=groups, sds=np.array([sd]), full_cov=cov, group_labels=(tuple(group_labels),),
+        group_codes=(np.asarray(group_codes),), group_modes=(modes,), group_mode_se=(mode_se,),
+        likelihood=design, internal_params=internal,
+    )
+
+
+# ---- profile likelihood of the SD ---------------------------------------------------------
+def _profile_loglik(res, sigma, start):
+    """Maximum of the marginal log-likelihood over thresholds and effects at a fixed SD."""
+    design, link = res.likelihood, res.link
+    k = len(start)
+
+    def full(v):
+        return np.concatenate([v, [sigma]])
+
+    def evaluate(v, order):
+        ll, g, H = design.sums(link, full(v), order=order)
+        return ll, None if g is None else g[:k], None if H is None else H[:k, :k]
+
+    out = newton_maximize(evaluate, start, feasible=lambda v: design.feasible(full(v)), max_iter=200, tol=1e-12)
+    return out.loglik, out.params
+
+
+def _sd_profile_interval(res, level):
+    """Profile-likelihood interval ``(lower, upper)`` of the (single) SD."""
+    if res.likelihood is None:
+        return np.nan, np.nan
+    crit = stats.chi2.isf(1 - level, 1)
+    sd = float(res.sds[0])
+    start = res.internal_params[:-1]
+    cache = {}
+
+    def excess(s):
+        if s not in cache:
+            cache[s] = 2.0 * (res.loglik - _profile_loglik(res, s, start)[0]) - crit
+        return cache[s]
+
+    lower = 0.0 if excess(0.0) <= 0 else optimize.brentq(excess, 0.0, sd, xtol=1e-6 * max(sd, 1e-3))
+    se = float(np.sqrt(res.full_cov[-1, -1])) if np.isfinite(res.full_cov[-1, -1]) else 0.5
+    hi = sd + 2.0 * max(se, 0.05)
+    for _ in range(12):
+        if excess(hi) > 0:
+            return lower, optimize.brentq(excess, sd, hi, xtol=1e-6 * max(sd, 1e-3))
+        hi = sd + 2.0 * (hi - sd)
+    return lower, np.inf
+
+
+# ---- likelihood-ratio test of the random part ------------------------------------------------
+def compare_random_part(plain, mixed):
+    """Likelihood-ratio test of ``sigma = 0``: plain fit against the random-intercept fit.
+
+    Under ``sigma = 0`` the SD is on the boundary of its range, and the statistic
+    ``2 (loglik_mixed - loglik_plain)`` follows a 50:50 mixture of chi-squared with 0 and 1
+    degrees of freedom (Self & Liang 1987, J. Amer. Statist. Assoc. 82:605-610), so the
+    p-value is half the chi-squared(1) tail.
+    """
+    if not isinstance(mixed, RandomInterceptFit) or isinstance(plain, RandomInterceptFit):
+        raise ComparisonError("compare the plain fit first, then the random-intercept fit")
+    if plain.options.get("nonparallel") or plain.options.get("scale_by"):
+        raise ComparisonError("the plain fit has per-threshold or scale effects; the random-intercept fit has not")
+    if (plain.link.name != mixed.link.name or tuple(plain.levels) != tuple(mixed.levels)
+            or tuple(plain.coef_names) != tuple(mixed.coef_names)):
+        raise ComparisonError("the fits differ in link, levels or predictors: refit with the same model")
+    if plain.n_rows != mixed.n_rows or not np.isclose(plain.n_obs, mixed.n_obs):
+        raise ComparisonError(f"fits use different rows ({plain.n_rows} and {mixed.n_rows}): refit on the same rows")
+    stat = max(2.0 * (mixed.loglik - plain.loglik), 0.0)
+    df = len(mixed.groups)
+    p = 0.5 * stats.chi2.sf(stat, df) if stat > 0 else 1.0
+    names = [f"{plain.formula} [{plain.link.name}]",
+             f"{mixed.formula} [{mixed.link.name}] random_intercepts={list(mixed.groups)}"]
+    return pd.DataFrame(
+        {"model": names, "n_params": [plain.n_params, mixed.n_params], "loglik": [plain.loglik, mixed.loglik],
+         "statistic": [np.nan, stat], "df": [np.nan, df], "p_value": [np.nan, p],
+         "reference": ["", "50:50 mixture of chi2_0 and chi2_1 (SD on its boundary)"]},
+        index=["smaller", "larger"])

@@ -1,0 +1,235 @@
+"""Fitting cumulative link models with a random intercept per group, and the fit options
+that change the covariance (clusters, sampling weights).
+
+``P(Y <= j | x, u) = F(theta_j - x'beta - u_g)``, ``u_g ~ N(0, sigma^2)`` (Hedeker &
+Gibbons 1994).  The marginal likelihood is integrated by adaptive Gauss-Hermite quadrature
+(Pinheiro & Bates 1995; :mod:`ordwidgets.core.grouped_likelihood`).  The model is handed to
+the Newton iteration as a *design* with the same protocol as the plain and extended models
+(``n_params``, ``counts()``, ``sums(link, params, order)``, ``feasible``, ``start``), on
+standardised columns; the covariance is the inverse of the Hessian obtained by differencing
+the exact gradient at the optimum (the Newton steps use the fixed-node Hessian).
+"""
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pandas as pd
+
+from .design import prepare
+from .exceptions import DataWarning, OrdinalDataError
+from .grouped_likelihood import DEFAULT_POINTS, GroupedRows, differenced_hessian, marginal_sums, quadrature_rule
+from .links import get_link
+from .optimize import NewtonOutcome, check_convergence, newton_maximize
+from .sandwich import check_weight_kind, with_robust_covariance
+
+__all__ = ["RandomInterceptDesign", "fit_with_options", "fit_random_intercepts", "grouping_columns"]
+
+
+class RandomInterceptDesign:
+    """Design protocol object of the one-grouping-column random-intercept model.
+
+    Parameters are ``[theta (J-1), beta (p), sigma]`` on standardised columns.  The modes
+    of the last evaluation are kept to warm-start the next one (they change the work, not
+    the result: each evaluation iterates its modes to 1e-10).
+    """
+
+    def __init__(self, rows: GroupedRows, points: int):
+        self.rows, self.points = rows, points
+        self._modes = None
+
+    @property
+    def n_params(self) -> int:
+        return self.rows.n_params
+
+    def counts(self):
+        return self.rows.counts()
+
+    def feasible(self, params):
+        m = self.rows.n_levels - 1
+        return bool(np.all(np.isfinite(params)) and np.all(np.diff(params[:m]) > 0))
+
+    def evaluate(self, link, params, *, order=2):
+        """The full :class:`~ordwidgets.core.grouped_likelihood.MarginalSums`."""
+        out = marginal_sums(self.rows, link, params, points=self.points, order=order, start_modes=self._modes)
+        if np.all(np.isfinite(out.modes)):
+            self._modes = out.modes
+        return out
+
+    def sums(self, link, params, *, order=2):
+        out = self.evaluate(link, params, order=order)
+        return out.loglik, out.grad, out.hess
+
+    def hessian(self, link, params):
+        """Observed information's negative: central differences of the exact gradient."""
+        return differenced_hessian(lambda x: self.evaluate(link, x, order=1).grad, params)
+
+
+def grouping_columns(random_intercepts):
+    """Normalise ``random_intercepts=`` to a list of column names."""
+    cols = [random_intercepts] if isinstance(random_intercepts, str) else list(random_intercepts)
+    if not cols or not all(isinstance(c, str) for c in cols):
+        raise OrdinalDataError(f"random_intercepts must name one or more grouping columns, got {random_intercepts!r}")
+    if len(set(cols)) != len(cols):
+        raise OrdinalDataError(f"random_intercepts names a column twice: {cols}")
+    return cols
+
+
+def _check_points(quadrature):
+    points = DEFAULT_POINTS if quadrature is None else quadrature
+    try:
+        quadrature_rule(points)
+    except ValueError as exc:
+        raise OrdinalDataError(str(exc)) from None
+    return int(points)
+
+
+def _is_dask(data):
+    return type(data).__module__.split(".")[0] == "dask"
+
+
+def fit_with_options(plain_fit, formula, data, *, random_intercepts=None, quadrature=None, cluster=None,
+                     weight_kind="frequency", keep_data=True, **options):
+    """``fit`` with random intercepts, a cluster column or sampling weights.
+
+    ``plain_fit`` is :func:`ordwidgets.core.fitting.fit` (passed in, so this module does
+    not import it); ``options`` are its remaining arguments.
+    """
+    check_weight_kind(weight_kind)
+    if random_intercepts is None:
+        if quadrature is not None:
+            raise OrdinalDataError("quadrature= applies only to fits with random_intercepts=")
+        if _is_dask(data):
+            raise OrdinalDataError("cluster= and weight_kind='sampling' are not supported for Dask frames yet")
+        if weight_kind == "sampling" and options.get("weights") is None:
+            raise OrdinalDataError("weight_kind='sampling' needs weights=")
+        res = plain_fit(formula, data, keep_data=True, **options)
+        res = with_robust_covariance(res, data, cluster=cluster, weight_kind=weight_kind)
+        return res if keep_data else _without_training(res)
+    for name, value, why in (("cluster", cluster, "cluster-robust"), ("nonparallel", options.get("nonparallel"), ""),
+                             ("scale_by", options.get("scale_by"), "")):
+        if value:
+            raise OrdinalDataError(f"random_intercepts= cannot be combined with {name}= yet")
+    if weight_kind == "sampling":
+        raise OrdinalDataError("random_intercepts= cannot be combined with weight_kind='sampling' yet")
+    if _is_dask(data):
+        raise OrdinalDataError("random_intercepts= is not supported for Dask frames yet; fit a pandas frame")
+    options.pop("nonparallel", None), options.pop("scale_by", None)
+    return fit_random_intercepts(formula, data, groups=grouping_columns(random_intercepts),
+                                 quadrature=quadrature, keep_data=keep_data, **options)
+
+
+def _without_training(res):
+    import dataclasses
+
+    return dataclasses.replace(res, training=None)
+
+
+def _drop_missing_groups(data, cols):
+    if not isinstance(data, pd.DataFrame):
+        raise OrdinalDataError(f"data must be a pandas DataFrame, got {type(data).__name__}")
+    for col in cols:
+        if col not in data.columns:
+            raise OrdinalDataError(f"grouping column {col!r} is not in the data")
+    missing = data[cols].isna().any(axis=1)
+    if missing.any():
+        warnings.warn(f"{int(missing.sum())} rows dropped: missing value in grouping column(s) "
+                      f"{', '.join(repr(c) for c in cols)}", DataWarning, stacklevel=4)
+        data = data.loc[~missing]
+    return data
+
+
+def _standardise(X, w):
+    """Weighted column means and SDs (columns first shifted by their first value)."""
+    if X.shape[1] == 0:
+        return np.zeros(0), np.ones(0)
+    shift = X[0]
+    Xc = X - shift
+    centre = np.average(Xc, axis=0, weights=w)
+    sd = np.sqrt(np.average((Xc - centre) ** 2, axis=0, weights=w))
+    return shift + centre, np.where(sd > 0, sd, 1.0)
+
+
+def _user_matrix(m, mean, sd):
+    """``A`` with ``params_user = A @ params_internal`` (the SD is not rescaled)."""
+    p = len(mean)
+    A = np.eye(m + p + 1)
+    A[m:m + p, m:m + p] = np.diag(1.0 / sd)
+    A[:m, m:m + p] = (mean / sd)[None, :]
+    return A
+
+
+def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, levels=None, quadrature=None,
+                          max_iter=100, tol=1e-10, keep_data=True, callback=None):
+    """Fit ``P(Y <= j | x, u) = F(theta_j - x'beta - u_g)`` with ``u_g ~ N(0, sigma^2)``.
+
+    Parameters
+    ----------
+    groups : list of str
+        Grouping columns; one column is supported (adaptive Gauss-Hermite quadrature).
+    quadrature : int, optional
+        Points per group (default :data:`~ordwidgets.core.grouped_likelihood.DEFAULT_POINTS`;
+        1 = Laplace approximation).
+    Other parameters as :func:`ordwidgets.core.fitting.fit`.
+
+    Returns
+    -------
+    RandomInterceptFit
+    """
+    from .mixed_results import build_result
+
+    if len(groups) > 1:
+        raise OrdinalDataError(f"random intercepts for several grouping columns ({', '.join(groups)}) are not "
+                               "supported yet; use one grouping column")
+    points = _check_points(quadrature)
+    lk = get_link(link)
+    data = _drop_missing_groups(data, groups)
+    prep = prepare(formula, data, weights=weights, levels=levels)
+    codes, labels = pd.factorize(prep.frame.loc[prep.index, groups[0]], sort=True)
+    m, p = len(prep.levels) - 1, prep.X.shape[1]
+    used = len(prep.y) if prep.weights is None else int(np.count_nonzero(prep.weights))
+    if used < m + p + 1:
+        raise OrdinalDataError(f"{used} rows for {m + p + 1} parameters: fewer rows than parameters")
+    mean, sd = _standardise(prep.X, prep.weights)
+    rows, order = GroupedRows.from_rows((prep.X - mean) / sd, prep.y, codes, len(prep.levels), prep.weights)
+    design = RandomInterceptDesign(rows, points)
+    A = _user_matrix(m, mean, sd)
+    start = _start(design, lk, m)
+    outcome = newton_maximize(lambda x, o: design.sums(lk, x, order=o), start, feasible=design.feasible,
+                              max_iter=max_iter, tol=tol, callback=callback)
+    outcome = _with_observed_hessian(design, lk, outcome)
+    converged, message, condition = check_convergence(outcome, what=f"random-intercept fit {formula!r}")
+    return build_result(prep, lk, design, outcome, A, converged=converged, message=message, condition=condition,
+                        formula=formula, groups=tuple(groups), group_codes=codes, group_labels=labels,
+                        keep_data=keep_data, options={"weights": weights, "levels": levels, "quadrature": points})
+
+
+def _start(design, link, m, sigma=1.0):
+    """Thresholds and effects maximised at ``sigma = 1``, then ``sigma = 1``.
+
+    ``sigma = 0`` is a stationary point (the likelihood is even in ``sigma``), so the
+    search starts away from it; maximising the rest first (from the closed-form
+    thresholds and zero effects) keeps the first full Newton step from jumping there.
+    """
+    counts = design.counts()
+    theta = link.ppf(np.cumsum(counts)[:-1] / counts.sum())
+    rest = np.concatenate([theta, np.zeros(design.n_params - m - 1)])
+    k = len(rest)
+
+    def evaluate(v, order):
+        ll, g, H = design.sums(link, np.append(v, sigma), order=order)
+        return ll, None if g is None else g[:k], None if H is None else H[:k, :k]
+
+    out = newton_maximize(evaluate, rest, feasible=lambda v: design.feasible(np.append(v, sigma)), max_iter=50,
+                          tol=1e-6)
+    return np.append(out.params if np.all(np.isfinite(out.params)) else rest, sigma)
+
+
+def _with_observed_hessian(design, link, outcome):
+    """Replace the Newton steps' Hessian by the differenced exact one (for covariance and checks)."""
+    if not np.all(np.isfinite(outcome.params)):
+        return outcome
+    H = design.hessian(link, outcome.params)
+    out = design.evaluate(link, outcome.params, order=1)
+    return NewtonOutcome(outcome.params, out.loglik, out.grad, H, outcome.iterations, outcome.decrement,
+                         outcome.status)
