@@ -18,7 +18,7 @@ import pandas as pd
 
 from .design import prepare
 from .exceptions import DataWarning, OrdinalDataError
-from .grouped_likelihood import DEFAULT_POINTS, GroupedRows, differenced_hessian, marginal_sums, quadrature_rule
+from .grouped_likelihood import GroupedRows, default_points, differenced_hessian, marginal_sums, quadrature_rule
 from .links import get_link
 from .optimize import NewtonOutcome, check_convergence, newton_maximize
 from .sandwich import check_weight_kind, with_robust_covariance
@@ -57,8 +57,18 @@ class RandomInterceptDesign:
         return out
 
     def sums(self, link, params, *, order=2):
-        out = self.evaluate(link, params, order=order)
-        return out.loglik, out.grad, out.hess
+        """Log-likelihood, exact gradient and the Newton steps' Hessian.
+
+        With fewer than 5 points (the Laplace approximation) the fixed-node Hessian misses
+        the curvature's own dependence on the parameters and makes Newton crawl; the steps
+        then use the 5-point fixed-node Hessian (a metric only: value and gradient stay
+        those of the requested approximation).
+        """
+        out = self.evaluate(link, params, order=min(order, 1) if self.points < 5 else order)
+        hess = out.hess
+        if order >= 2 and self.points < 5:
+            hess = marginal_sums(self.rows, link, params, points=5, order=2, start_modes=out.modes).hess
+        return out.loglik, out.grad, hess
 
     def hessian(self, link, params):
         """Observed information's negative: central differences of the exact gradient."""
@@ -75,8 +85,8 @@ def grouping_columns(random_intercepts):
     return cols
 
 
-def _check_points(quadrature):
-    points = DEFAULT_POINTS if quadrature is None else quadrature
+def _check_points(quadrature, link):
+    points = default_points(link) if quadrature is None else quadrature
     try:
         quadrature_rule(points)
     except ValueError as exc:
@@ -168,8 +178,8 @@ def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, 
     groups : list of str
         Grouping columns; one column is supported (adaptive Gauss-Hermite quadrature).
     quadrature : int, optional
-        Points per group (default :data:`~ordwidgets.core.grouped_likelihood.DEFAULT_POINTS`;
-        1 = Laplace approximation).
+        Points per group (default 9, 17 for the cauchit:
+        :func:`~ordwidgets.core.grouped_likelihood.default_points`; 1 = Laplace approximation).
     Other parameters as :func:`ordwidgets.core.fitting.fit`.
 
     Returns
@@ -181,8 +191,8 @@ def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, 
     if len(groups) > 1:
         raise OrdinalDataError(f"random intercepts for several grouping columns ({', '.join(groups)}) are not "
                                "supported yet; use one grouping column")
-    points = _check_points(quadrature)
     lk = get_link(link)
+    points = _check_points(quadrature, lk)
     data = _drop_missing_groups(data, groups)
     prep = prepare(formula, data, weights=weights, levels=levels)
     codes, labels = pd.factorize(prep.frame.loc[prep.index, groups[0]], sort=True)
