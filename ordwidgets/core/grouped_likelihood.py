@@ -42,7 +42,8 @@ from .links import get_link
 from .objective import row_terms, sort_by_category
 
 __all__ = ["GroupedRows", "MarginalSums", "marginal_sums", "find_modes", "log_density_curvature",
-           "differenced_hessian", "quadrature_rule", "DEFAULT_POINTS", "default_points"]
+           "differenced_hessian", "quadrature_rule", "DEFAULT_POINTS", "default_points", "shift_terms",
+           "shift_derivatives", "parameter_sums"]
 
 #: Default number of quadrature points: enough for the log-likelihood to match a 50-point
 #: integral to 1e-4 on the tests' data (groups of about 15 rows, SD 1.1); the cauchit's heavy
@@ -171,7 +172,7 @@ class MarginalSums:
     group_scores: np.ndarray | None = None
 
 
-def _shift_terms(link, rows, theta, shift, *, order=2, third=False):
+def shift_terms(link, rows, theta, shift, *, order=2, third=False):
     """Per-row ``log P`` and derivatives in the interval ends, zeros for a missing end.
 
     Row ``i`` in category ``k`` has ``upper = theta_k - shift_i`` and ``lower =
@@ -224,7 +225,7 @@ def _third_terms(link, out, s, e, up, lo, t):
         out["lll"][s:e] = -B2 - 3 * b * B - 2 * b ** 3
 
 
-def _shift_derivs(T):
+def shift_derivatives(T):
     """First, second (and third) derivatives of ``log P`` in the shift ``x'beta + u``."""
     s1 = -(T["u"] + T["l"])
     s2 = T["uu"] + 2.0 * T["ul"] + T["ll"] if "uu" in T else None
@@ -264,13 +265,13 @@ def find_modes(rows, link, theta, eta, sigma, *, start=None, max_iter=100):
 
 def _mode_terms(rows, link, theta, eta, sigma, z):
     """``h_g(z_g)`` (without constants), ``h_g'`` and ``-h_g''`` for every group."""
-    T = _shift_terms(link, rows, theta, eta + sigma * z[rows.groups], order=2)
-    s1, s2, _ = _shift_derivs(T)
+    T = shift_terms(link, rows, theta, eta + sigma * z[rows.groups], order=2)
+    s1, s2, _ = shift_derivatives(T)
     h = rows.group_total(T["lp"]) - 0.5 * z * z
     return h, sigma * rows.group_total(s1) - z, 1.0 - sigma * sigma * rows.group_total(s2)
 
 
-def _param_vector(rows, cu, cl, cs, csig):
+def parameter_sums(rows, cu, cl, cs, csig):
     """``sum_i`` of per-row derivative pieces mapped onto ``[theta, beta, sigma]``.
 
     ``cu`` multiplies ``d upper/d theta`` (the row's own threshold), ``cl`` ``d lower/d
@@ -319,7 +320,7 @@ def marginal_sums(rows, link, params, *, points=None, order=2, start_modes=None,
     nodes = z[:, None] + t[None, :] / np.sqrt(c)[:, None]
     terms, ll_gk = [], np.empty_like(nodes)
     for k in range(len(t)):
-        T = _shift_terms(link, rows, theta, eta + sigma * nodes[rows.groups, k], order=order)
+        T = shift_terms(link, rows, theta, eta + sigma * nodes[rows.groups, k], order=order)
         ll_gk[:, k] = rows.group_total(T["lp"]) - 0.5 * nodes[:, k] ** 2 + logw[k]
         terms.append(T)
     lse = logsumexp(ll_gk, axis=1)
@@ -348,7 +349,7 @@ def _fixed_gradient(rows, terms, pi, nodes):
         cl += v * T["l"]
         cs += v * s1
         csig += v * s1 * nodes[g, k]
-    return _param_vector(rows, cu, cl, cs, csig)
+    return parameter_sums(rows, cu, cl, cs, csig)
 
 
 def _node_correction(rows, link, theta, eta, sigma, z, c, t, terms, pi, nodes):
@@ -359,8 +360,8 @@ def _node_correction(rows, link, theta, eta, sigma, z, c, t, terms, pi, nodes):
     hz = np.stack([sigma * rows.group_total(-(T["u"] + T["l"])) - nodes[:, k] for k, T in enumerate(terms)], 1)
     A = np.sum(pi * hz, axis=1)
     B = -0.5 / c - 0.5 * c ** -1.5 * np.sum(pi * t[None, :] * hz, axis=1)
-    T0 = _shift_terms(link, rows, theta, eta + sigma * z[g], order=2, third=True)
-    s1, s2, s3 = _shift_derivs(T0)
+    T0 = shift_terms(link, rows, theta, eta + sigma * z[g], order=2, third=True)
+    s1, s2, s3 = shift_derivatives(T0)
     hzzz = sigma ** 3 * rows.group_total(s3)
     r = _weighted(rows, ((A - B * hzzz) / c)[g])
     q = _weighted(rows, -B[g])
@@ -370,7 +371,7 @@ def _node_correction(rows, link, theta, eta, sigma, z, c, t, terms, pi, nodes):
     cl = r * sigma * -(T0["ul"] + T0["ll"]) + q * s2_ * (T0["uul"] + 2 * T0["ull"] + T0["lll"])
     cs = r * sigma * s2 + q * s2_ * s3
     csig = r * (s1 + sigma * zr * s2) + q * (2 * sigma * s2 + s2_ * zr * s3)
-    return _param_vector(rows, cu, cl, cs, csig)
+    return parameter_sums(rows, cu, cl, cs, csig)
 
 
 def _fixed_hessian(rows, terms, pi, nodes, sigma):

@@ -76,10 +76,17 @@ class RandomInterceptFit(FitResult):
         """
         return self.sd_intervals(0.95)
 
+    @cached_property
+    def _solved_intervals(self) -> dict:
+        return {}
+
     def sd_intervals(self, level=0.95) -> pd.DataFrame:
-        """Variance components with a profile-likelihood interval of the SD at ``level``."""
-        lo, hi = _sd_profile_interval(self, level)
-        return pd.DataFrame({"sd": self.sds, "lower": [lo], "upper": [hi],
+        """Variance components with a profile-likelihood interval of the SD at ``level``
+        (each level is computed once per result)."""
+        if level not in self._solved_intervals:
+            self._solved_intervals[level] = _sd_profile_interval(self, level)
+        lo, hi = self._solved_intervals[level]
+        return pd.DataFrame({"sd": self.sds, "lower": lo, "upper": hi,
                              "n_groups": [len(lab) for lab in self.group_labels]}, index=list(self.groups))
 
     def group_effects(self, column=None) -> pd.DataFrame:
@@ -101,14 +108,6 @@ class RandomInterceptFit(FitResult):
         if column not in self.groups:
             raise OrdinalDataError(f"{column!r} is not a grouping column of this fit (grouping: {', '.join(self.groups)})")
         return self.groups.index(column)
-
-    @property
-    def aic(self) -> float:
-        return -2.0 * self.loglik + 2.0 * self.n_params
-
-    @property
-    def bic(self) -> float:
-        return -2.0 * self.loglik + np.log(self.n_obs) * self.n_params
 
     def table(self, level=0.95) -> pd.DataFrame:
         """Fixed part as for plain fits, then one ``sd(<column>)`` row per grouping column.
@@ -182,7 +181,7 @@ class RandomInterceptFit(FitResult):
             return pd.Series(self._eta(X) + offset, index=index, name="latent")
         cols = [str(v) for v in self.levels]
         probs = self._probabilities(full, X, offset, groups)
-        if kind == "most_likely" or kind == "class":
+        if kind == "most_likely":
             return pd.Series(np.asarray(self.levels, dtype=object)[probs.argmax(axis=1)], index=index, name=kind)
         if kind not in ("probabilities", "cumulative"):
             raise ValueError(f"kind must be 'probabilities', 'cumulative', 'latent' or 'most_likely', got {kind!r}")
@@ -202,7 +201,8 @@ class RandomInterceptFit(FitResult):
             return category_probabilities(self.link, theta, eta)
         t, w = hermegauss(_POPULATION_POINTS)
         w = w / w.sum()
-        return sum(wk * category_probabilities(self.link, theta, eta + float(sd.sum()) * tk) for tk, wk in zip(t, w))
+        total = float(np.sqrt(np.sum(sd ** 2)))  # independent normal intercepts add their variances
+        return sum(wk * category_probabilities(self.link, theta, eta + total * tk) for tk, wk in zip(t, w))
 
     def _delta_interval(self, full, X, offset, groups, est, cum, level):
         """Delta method on the logit scale with a central-difference Jacobian."""
@@ -271,75 +271,92 @@ class RandomInterceptFit(FitResult):
 
 def build_result(prep, lk, design, outcome, A, *, converged, message, condition, formula, groups, group_codes,
                  group_labels, keep_data, options):
-    """Map an internal optimum to a :class:`RandomInterceptFit` on the user's scale."""
-    P = len(outcome.params)
-    k = P - 1
+    """Map an internal optimum to a :class:`RandomInterceptFit` on the user's scale.
+
+    The likelihood is even in each ``sigma_c``; negative values are folded to ``|sigma_c|``
+    (with the sign of their covariances).
+    """
+    P, C = len(outcome.params), len(groups)
+    k = P - C
     internal = np.array(outcome.params, float)
     user = A @ internal
-    with np.errstate(invalid="ignore"):
-        try:
-            cov = A @ np.linalg.inv(-outcome.hess) @ A.T
-        except np.linalg.LinAlgError:
-            cov = np.full((P, P), np.nan)
+    try:
+        cov = A @ np.linalg.inv(-outcome.hess) @ A.T
+    except np.linalg.LinAlgError:
+        cov = np.full((P, P), np.nan)
     sign = np.ones(P)
-    sign[k] = np.sign(user[k]) or 1.0
+    sign[k:] = np.where(user[k:] < 0, -1.0, 1.0)
     cov = cov * np.outer(sign, sign)
-    sd = abs(user[k])
-    out = design.evaluate(lk, internal, order=0)
-    modes = user[k] * out.modes
-    mode_se = sd / np.sqrt(out.curvature)
+    sds = np.abs(user[k:])
+    effects = design.conditional_effects(lk, internal)
+    modes = tuple(user[k + c] * z for c, (z, _) in enumerate(effects))
+    mode_se = tuple(sds[c] * se for c, (_, se) in enumerate(effects))
     grad_user = np.linalg.solve(A.T, outcome.grad)
     training = TrainingData(prep.X, prep.y, prep.weights, prep.index, frame=prep.frame) if keep_data else None
     return RandomInterceptFit(
         link=lk, levels=prep.levels, threshold_names=tuple(threshold_labels(prep.levels)), coef_names=prep.columns,
         params=user[:k], cov=cov[:k, :k], loglik=float(outcome.loglik), n_obs=float(design.counts().sum()),
         n_rows=int(len(prep.y)), iterations=outcome.iterations, converged=converged, message=message,
-        max_grad=float(np.max(np.abs(grad_user), initial=0.0)), condition=condition, formula=formula,
+        largest_score=float(np.max(np.abs(grad_user), initial=0.0)), curvature_condition=condition, formula=formula,
         response=prep.response, model_spec=prep.model_spec, notes=tuple(prep.notes), training=training,
         options={**options, "random_intercepts": list(groups), "covariance_type": "model"},
-        groups=groups, sds=np.array([sd]), full_cov=cov, group_labels=(tuple(group_labels),),
-        group_codes=(np.asarray(group_codes),), group_modes=(modes,), group_mode_se=(mode_se,),
+        groups=groups, sds=sds, full_cov=cov, group_labels=tuple(tuple(lab) for lab in group_labels),
+        group_codes=tuple(np.asarray(c) for c in group_codes), group_modes=modes, group_mode_se=mode_se,
         likelihood=design, internal_params=internal,
     )
 
 
 # ---- profile likelihood of the SD ---------------------------------------------------------
-def _profile_loglik(res, sigma, start):
-    """Maximum of the marginal log-likelihood over thresholds and effects at a fixed SD."""
+def _profile_loglik(res, column, sigma, start):
+    """Maximum of the marginal log-likelihood over all else at a fixed SD of one column."""
     design, link = res.likelihood, res.link
-    k = len(start)
+    j = len(res.params) + column
+    free = np.flatnonzero(np.arange(len(res.internal_params)) != j)
 
     def full(v):
-        return np.concatenate([v, [sigma]])
+        x = np.empty(len(free) + 1)
+        x[free], x[j] = v, sigma
+        return x
 
     def evaluate(v, order):
         ll, g, H = design.sums(link, full(v), order=order)
-        return ll, None if g is None else g[:k], None if H is None else H[:k, :k]
+        return ll, None if g is None else g[free], None if H is None else H[np.ix_(free, free)]
 
-    out = newton_maximize(evaluate, start, feasible=lambda v: design.feasible(full(v)), max_iter=200, tol=1e-12)
-    return out.loglik, out.params
+    out = newton_maximize(evaluate, start[free], feasible=lambda v: design.feasible(full(v)), max_iter=200,
+                          tol=1e-10)
+    return out.loglik, full(out.params)
 
 
 def _sd_profile_interval(res, level):
-    """Profile-likelihood interval ``(lower, upper)`` of the (single) SD."""
+    """Profile-likelihood intervals ``(lower, upper)`` (arrays over grouping columns)."""
     if res.likelihood is None:
-        return np.nan, np.nan
+        return np.full(len(res.groups), np.nan), np.full(len(res.groups), np.nan)
+    ends = [_one_sd_interval(res, c, level) for c in range(len(res.groups))]
+    return np.array([e[0] for e in ends]), np.array([e[1] for e in ends])
+
+
+def _one_sd_interval(res, column, level):
     crit = stats.chi2.isf(1 - level, 1)
-    sd = float(res.sds[0])
-    start = res.internal_params[:-1]
-    cache = {}
+    sd = float(res.sds[column])
+    start = np.array(res.internal_params, float)
+    start[len(res.params):] = np.abs(start[len(res.params):])
+    cache, solved = {}, {sd: start}
 
     def excess(s):
         if s not in cache:
-            cache[s] = 2.0 * (res.loglik - _profile_loglik(res, s, start)[0]) - crit
+            near = solved[min(solved, key=lambda t: abs(t - s))]  # warm start from the nearest solved SD
+            ll, solved[s] = _profile_loglik(res, column, s, near)
+            cache[s] = 2.0 * (res.loglik - ll) - crit
         return cache[s]
 
-    lower = 0.0 if excess(0.0) <= 0 else optimize.brentq(excess, 0.0, sd, xtol=1e-6 * max(sd, 1e-3))
-    se = float(np.sqrt(res.full_cov[-1, -1])) if np.isfinite(res.full_cov[-1, -1]) else 0.5
-    hi = sd + 2.0 * max(se, 0.05)
+    tol = 1e-5 * max(sd, 1e-2)
+    lower = 0.0 if excess(0.0) <= 0 else optimize.brentq(excess, 0.0, sd, xtol=tol)
+    var = res.full_cov[len(res.params) + column, len(res.params) + column]
+    step = 2.0 * max(float(np.sqrt(var)) if np.isfinite(var) and var > 0 else 0.5, 0.05)
+    hi = sd + step
     for _ in range(12):
         if excess(hi) > 0:
-            return lower, optimize.brentq(excess, sd, hi, xtol=1e-6 * max(sd, 1e-3))
+            return lower, optimize.brentq(excess, sd, hi, xtol=tol)
         hi = sd + 2.0 * (hi - sd)
     return lower, np.inf
 
@@ -351,7 +368,9 @@ def compare_random_part(plain, mixed):
     Under ``sigma = 0`` the SD is on the boundary of its range, and the statistic
     ``2 (loglik_mixed - loglik_plain)`` follows a 50:50 mixture of chi-squared with 0 and 1
     degrees of freedom (Self & Liang 1987, J. Amer. Statist. Assoc. 82:605-610), so the
-    p-value is half the chi-squared(1) tail.
+    p-value is half the chi-squared(1) tail.  With ``C`` grouping columns the statistic tests
+    all SDs at once and is referred to the mixture of chi-squared(0..C) with binomial
+    weights ``binom(C, k) / 2^C`` (Self & Liang 1987, case of uncorrelated SD estimates).
     """
     if not isinstance(mixed, RandomInterceptFit) or isinstance(plain, RandomInterceptFit):
         raise ComparisonError("compare the plain fit first, then the random-intercept fit")
@@ -364,11 +383,13 @@ def compare_random_part(plain, mixed):
         raise ComparisonError(f"fits use different rows ({plain.n_rows} and {mixed.n_rows}): refit on the same rows")
     stat = max(2.0 * (mixed.loglik - plain.loglik), 0.0)
     df = len(mixed.groups)
-    p = 0.5 * stats.chi2.sf(stat, df) if stat > 0 else 1.0
+    p = float(sum(special.comb(df, k) / 2.0 ** df * stats.chi2.sf(stat, k) for k in range(1, df + 1))) \
+        if stat > 0 else 1.0
     names = [f"{plain.formula} [{plain.link.name}]",
              f"{mixed.formula} [{mixed.link.name}] random_intercepts={list(mixed.groups)}"]
     return pd.DataFrame(
         {"model": names, "n_params": [plain.n_params, mixed.n_params], "loglik": [plain.loglik, mixed.loglik],
          "statistic": [np.nan, stat], "df": [np.nan, df], "p_value": [np.nan, p],
-         "reference": ["", "50:50 mixture of chi2_0 and chi2_1 (SD on its boundary)"]},
+         "reference": ["", "50:50 mixture of chi2_0 and chi2_1 (SD on its boundary)" if df == 1 else
+                       f"binomial mixture of chi2_0..chi2_{df} (SDs on their boundary)"]},
         index=["smaller", "larger"])

@@ -18,25 +18,19 @@ import pandas as pd
 
 from .design import prepare
 from .exceptions import DataWarning, OrdinalDataError
+from .crossed_likelihood import MAX_GROUPS, CrossedRows, laplace_sums
 from .grouped_likelihood import GroupedRows, default_points, differenced_hessian, marginal_sums, quadrature_rule
 from .links import get_link
 from .optimize import NewtonOutcome, check_convergence, newton_maximize
 from .sandwich import check_weight_kind, with_robust_covariance
 
-__all__ = ["RandomInterceptDesign", "fit_with_options", "fit_random_intercepts", "grouping_columns"]
+__all__ = ["RandomInterceptDesign", "LaplaceDesign", "fit_with_options", "fit_random_intercepts", "grouping_columns"]
 
 
-class RandomInterceptDesign:
-    """Design protocol object of the one-grouping-column random-intercept model.
+class _GroupedDesign:
+    """What the one-column and several-column designs share (protocol parts)."""
 
-    Parameters are ``[theta (J-1), beta (p), sigma]`` on standardised columns.  The modes
-    of the last evaluation are kept to warm-start the next one (they change the work, not
-    the result: each evaluation iterates its modes to 1e-10).
-    """
-
-    def __init__(self, rows: GroupedRows, points: int):
-        self.rows, self.points = rows, points
-        self._modes = None
+    rows = None
 
     @property
     def n_params(self) -> int:
@@ -48,6 +42,23 @@ class RandomInterceptDesign:
     def feasible(self, params):
         m = self.rows.n_levels - 1
         return bool(np.all(np.isfinite(params)) and np.all(np.diff(params[:m]) > 0))
+
+    def hessian(self, link, params):
+        """Observed information's negative: central differences of the exact gradient."""
+        return differenced_hessian(lambda x: self.evaluate(link, x, order=1).grad, params)
+
+
+class RandomInterceptDesign(_GroupedDesign):
+    """Design protocol object of the one-grouping-column random-intercept model.
+
+    Parameters are ``[theta (J-1), beta (p), sigma]`` on standardised columns.  The modes
+    of the last evaluation are kept to warm-start the next one (they change the work, not
+    the result: each evaluation iterates its modes to 1e-10).
+    """
+
+    def __init__(self, rows: GroupedRows, points: int):
+        self.rows, self.points = rows, points
+        self._modes = None
 
     def evaluate(self, link, params, *, order=2):
         """The full :class:`~ordwidgets.core.grouped_likelihood.MarginalSums`."""
@@ -70,9 +81,40 @@ class RandomInterceptDesign:
             hess = marginal_sums(self.rows, link, params, points=5, order=2, start_modes=out.modes).hess
         return out.loglik, out.grad, hess
 
-    def hessian(self, link, params):
-        """Observed information's negative: central differences of the exact gradient."""
-        return differenced_hessian(lambda x: self.evaluate(link, x, order=1).grad, params)
+    def conditional_effects(self, link, params):
+        """Per grouping column: conditional modes of ``z`` and their (Laplace) SDs."""
+        out = self.evaluate(link, params, order=0)
+        return [(out.modes, 1.0 / np.sqrt(out.curvature))]
+
+
+class LaplaceDesign(_GroupedDesign):
+    """Design protocol object for several grouping columns (Laplace approximation).
+
+    Parameters are ``[theta, beta, sigma_1..sigma_C]``; the Newton steps' Hessian is the
+    Schur-complement metric of :func:`~ordwidgets.core.crossed_likelihood.laplace_sums`.
+    """
+
+    points = 1
+
+    def __init__(self, rows: CrossedRows):
+        self.rows = rows
+        self._modes = None
+
+    def evaluate(self, link, params, *, order=1):
+        out = laplace_sums(self.rows, link, params, order=order, start_modes=self._modes)
+        if np.all(np.isfinite(out.modes)):
+            self._modes = out.modes
+        return out
+
+    def sums(self, link, params, *, order=2):
+        out = self.evaluate(link, params, order=order)
+        return out.loglik, out.grad, out.hess
+
+    def conditional_effects(self, link, params):
+        out = self.evaluate(link, params, order=1)
+        sd = np.sqrt(np.diag(out.inverse))
+        offsets, sizes = self.rows.offsets, self.rows.sizes
+        return [(out.modes[o:o + k], sd[o:o + k]) for o, k in zip(offsets, sizes)]
 
 
 def grouping_columns(random_intercepts):
@@ -160,10 +202,10 @@ def _standardise(X, w):
     return shift + centre, np.where(sd > 0, sd, 1.0)
 
 
-def _user_matrix(m, mean, sd):
-    """``A`` with ``params_user = A @ params_internal`` (the SD is not rescaled)."""
+def _user_matrix(m, mean, sd, n_sds):
+    """``A`` with ``params_user = A @ params_internal`` (the SDs are not rescaled)."""
     p = len(mean)
-    A = np.eye(m + p + 1)
+    A = np.eye(m + p + n_sds)
     A[m:m + p, m:m + p] = np.diag(1.0 / sd)
     A[:m, m:m + p] = (mean / sd)[None, :]
     return A
@@ -176,7 +218,9 @@ def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, 
     Parameters
     ----------
     groups : list of str
-        Grouping columns; one column is supported (adaptive Gauss-Hermite quadrature).
+        Grouping columns.  One column: adaptive Gauss-Hermite quadrature
+        (:mod:`~ordwidgets.core.grouped_likelihood`); several (nested or crossed): the
+        Laplace approximation (:mod:`~ordwidgets.core.crossed_likelihood`).
     quadrature : int, optional
         Points per group (default 9, 17 for the cauchit:
         :func:`~ordwidgets.core.grouped_likelihood.default_points`; 1 = Laplace approximation).
@@ -188,33 +232,46 @@ def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, 
     """
     from .mixed_results import build_result
 
-    if len(groups) > 1:
-        raise OrdinalDataError(f"random intercepts for several grouping columns ({', '.join(groups)}) are not "
-                               "supported yet; use one grouping column")
     lk = get_link(link)
-    points = _check_points(quadrature, lk)
     data = _drop_missing_groups(data, groups)
     prep = prepare(formula, data, weights=weights, levels=levels)
-    codes, labels = pd.factorize(prep.frame.loc[prep.index, groups[0]], sort=True)
-    m, p = len(prep.levels) - 1, prep.X.shape[1]
+    coded = [pd.factorize(prep.frame.loc[prep.index, col], sort=True) for col in groups]
+    m, p, C = len(prep.levels) - 1, prep.X.shape[1], len(groups)
     used = len(prep.y) if prep.weights is None else int(np.count_nonzero(prep.weights))
-    if used < m + p + 1:
-        raise OrdinalDataError(f"{used} rows for {m + p + 1} parameters: fewer rows than parameters")
+    if used < m + p + C:
+        raise OrdinalDataError(f"{used} rows for {m + p + C} parameters: fewer rows than parameters")
     mean, sd = _standardise(prep.X, prep.weights)
-    rows, order = GroupedRows.from_rows((prep.X - mean) / sd, prep.y, codes, len(prep.levels), prep.weights)
-    design = RandomInterceptDesign(rows, points)
-    A = _user_matrix(m, mean, sd)
-    start = _start(design, lk, m)
+    design = _design_for(groups, coded, (prep.X - mean) / sd, prep, quadrature, lk)
+    start = _start(design, lk, m, C)
     outcome = newton_maximize(lambda x, o: design.sums(lk, x, order=o), start, feasible=design.feasible,
                               max_iter=max_iter, tol=tol, callback=callback)
     outcome = _with_observed_hessian(design, lk, outcome)
     converged, message, condition = check_convergence(outcome, what=f"random-intercept fit {formula!r}")
-    return build_result(prep, lk, design, outcome, A, converged=converged, message=message, condition=condition,
-                        formula=formula, groups=tuple(groups), group_codes=codes, group_labels=labels,
-                        keep_data=keep_data, options={"weights": weights, "levels": levels, "quadrature": points})
+    return build_result(prep, lk, design, outcome, _user_matrix(m, mean, sd, C), converged=converged,
+                        message=message, condition=condition, formula=formula, groups=tuple(groups),
+                        group_codes=[c for c, _ in coded], group_labels=[lab for _, lab in coded],
+                        keep_data=keep_data, options={"weights": weights, "levels": levels,
+                                                      "quadrature": design.points})
 
 
-def _start(design, link, m, sigma=1.0):
+def _design_for(groups, coded, Xs, prep, quadrature, link):
+    """One column: adaptive quadrature; several: the Laplace approximation."""
+    J = len(prep.levels)
+    if len(groups) == 1:
+        rows, _ = GroupedRows.from_rows(Xs, prep.y, coded[0][0], J, prep.weights)
+        return RandomInterceptDesign(rows, _check_points(quadrature, link))
+    if quadrature not in (None, 1):
+        raise OrdinalDataError(f"several grouping columns ({', '.join(groups)}) use the Laplace approximation: "
+                               f"leave quadrature= out or set it to 1, got {quadrature!r}")
+    total = sum(len(lab) for _, lab in coded)
+    if total > MAX_GROUPS:
+        raise OrdinalDataError(f"{total:,} groups over {', '.join(groups)}: at most {MAX_GROUPS:,} in all are "
+                               "supported with several grouping columns")
+    rows, _ = CrossedRows.from_rows(Xs, prep.y, np.column_stack([c for c, _ in coded]), J, prep.weights)
+    return LaplaceDesign(rows)
+
+
+def _start(design, link, m, n_sds, sigma=1.0):
     """Thresholds and effects maximised at ``sigma = 1``, then ``sigma = 1``.
 
     ``sigma = 0`` is a stationary point (the likelihood is even in ``sigma``), so the
@@ -223,16 +280,17 @@ def _start(design, link, m, sigma=1.0):
     """
     counts = design.counts()
     theta = link.ppf(np.cumsum(counts)[:-1] / counts.sum())
-    rest = np.concatenate([theta, np.zeros(design.n_params - m - 1)])
+    rest = np.concatenate([theta, np.zeros(design.n_params - m - n_sds)])
     k = len(rest)
+    sds = np.full(n_sds, sigma)
 
     def evaluate(v, order):
-        ll, g, H = design.sums(link, np.append(v, sigma), order=order)
+        ll, g, H = design.sums(link, np.append(v, sds), order=order)
         return ll, None if g is None else g[:k], None if H is None else H[:k, :k]
 
-    out = newton_maximize(evaluate, rest, feasible=lambda v: design.feasible(np.append(v, sigma)), max_iter=50,
+    out = newton_maximize(evaluate, rest, feasible=lambda v: design.feasible(np.append(v, sds)), max_iter=50,
                           tol=1e-6)
-    return np.append(out.params if np.all(np.isfinite(out.params)) else rest, sigma)
+    return np.append(out.params if np.all(np.isfinite(out.params)) else rest, sds)
 
 
 def _with_observed_hessian(design, link, outcome):
