@@ -26,6 +26,7 @@ from scipy import optimize, special, stats
 
 from .design import threshold_labels
 from .exceptions import ComparisonError, OrdinalDataError
+from .layout import parallel_layout
 from .optimize import newton_maximize
 from .probabilities import category_probabilities
 from .results import FitResult, TrainingData, render_html
@@ -269,21 +270,17 @@ class RandomInterceptFit(FitResult):
         return base[: -len("</div>")] + block + "</div>"
 
 
-def build_result(prep, lk, design, outcome, A, *, converged, message, condition, formula, groups, group_codes,
-                 group_labels, keep_data, options):
-    """Map an internal optimum to a :class:`RandomInterceptFit` on the user's scale.
+def build_result(prep, lk, design, outcome, user, cov, *, converged, message, condition, largest_score, formula,
+                 groups, group_codes, group_labels, keep_data, options):
+    """A :class:`RandomInterceptFit` from the engine's optimum (``user``: parameters on the
+    user's scale, ``cov`` their covariance).
 
     The likelihood is even in each ``sigma_c``; negative values are folded to ``|sigma_c|``
     (with the sign of their covariances).
     """
-    P, C = len(outcome.params), len(groups)
+    P, C = len(user), len(groups)
     k = P - C
     internal = np.array(outcome.params, float)
-    user = A @ internal
-    try:
-        cov = A @ np.linalg.inv(-outcome.hess) @ A.T
-    except np.linalg.LinAlgError:
-        cov = np.full((P, P), np.nan)
     sign = np.ones(P)
     sign[k:] = np.where(user[k:] < 0, -1.0, 1.0)
     cov = cov * np.outer(sign, sign)
@@ -291,18 +288,17 @@ def build_result(prep, lk, design, outcome, A, *, converged, message, condition,
     effects = design.conditional_effects(lk, internal)
     modes = tuple(user[k + c] * z for c, (z, _) in enumerate(effects))
     mode_se = tuple(sds[c] * se for c, (_, se) in enumerate(effects))
-    grad_user = np.linalg.solve(A.T, outcome.grad)
     training = TrainingData(prep.X, prep.y, prep.weights, prep.index, frame=prep.frame) if keep_data else None
     return RandomInterceptFit(
         link=lk, levels=prep.levels, threshold_names=tuple(threshold_labels(prep.levels)), coef_names=prep.columns,
         params=user[:k], cov=cov[:k, :k], loglik=float(outcome.loglik), n_obs=float(design.counts().sum()),
         n_rows=int(len(prep.y)), iterations=outcome.iterations, converged=converged, message=message,
-        largest_score=float(np.max(np.abs(grad_user), initial=0.0)), curvature_condition=condition, formula=formula,
+        largest_score=largest_score, curvature_condition=condition, formula=formula,
         response=prep.response, model_spec=prep.model_spec, notes=tuple(prep.notes), training=training,
         options={**options, "random_intercepts": list(groups), "covariance_type": "model"},
         groups=groups, sds=sds, full_cov=cov, group_labels=tuple(tuple(lab) for lab in group_labels),
         group_codes=tuple(np.asarray(c) for c in group_codes), group_modes=modes, group_mode_se=mode_se,
-        likelihood=design, internal_params=internal,
+        likelihood=design, internal_params=internal, layout=parallel_layout(prep.columns, threshold_labels(prep.levels)),
     )
 
 

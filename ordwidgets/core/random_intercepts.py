@@ -4,10 +4,12 @@ that change the covariance (clusters, sampling weights).
 ``P(Y <= j | x, u) = F(theta_j - x'beta - u_g)``, ``u_g ~ N(0, sigma^2)`` (Hedeker &
 Gibbons 1994).  The marginal likelihood is integrated by adaptive Gauss-Hermite quadrature
 (Pinheiro & Bates 1995; :mod:`ordwidgets.core.grouped_likelihood`).  The model is handed to
-the Newton iteration as a *design* with the same protocol as the plain and extended models
-(``n_params``, ``counts()``, ``sums(link, params, order)``, ``feasible``, ``start``), on
-standardised columns; the covariance is the inverse of the Hessian obtained by differencing
-the exact gradient at the optimum (the Newton steps use the fixed-node Hessian).
+the one engine (:func:`ordwidgets.core.engine.maximise`) as a *design* with the same
+protocol as the plain and extended models (``n_params``, ``counts()``, ``sums(link, params,
+order)``, ``feasible``, ``start``), on standardised columns.  The Newton steps use an
+approximate Hessian (see each design); the covariance is the inverse of the Hessian obtained
+by differencing the exact gradient at the optimum, and the fit counts as converged only
+when that Hessian is negative definite too.
 """
 from __future__ import annotations
 
@@ -16,11 +18,16 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from .design import prepare
+from scipy import linalg
+
+from .design import prepare, threshold_labels
+from .engine import (check_enough_rows, closed_form_thresholds, covariance_on_user_scale, maximise, standardise,
+                     user_scale_matrix)
 from .exceptions import DataWarning, OrdinalDataError
 from .crossed_likelihood import MAX_GROUPS, CrossedRows, laplace_sums
 from .grouped_likelihood import GroupedRows, default_points, differenced_hessian, marginal_sums, quadrature_rule
 from .links import get_link
+from .layout import parallel_layout
 from .optimize import NewtonOutcome, check_convergence, newton_maximize
 from .sandwich import check_weight_kind, with_robust_covariance
 
@@ -47,6 +54,25 @@ class _GroupedDesign:
         """Observed information's negative: central differences of the exact gradient."""
         return differenced_hessian(lambda x: self.evaluate(link, x, order=1).grad, params)
 
+    def start(self, link, sigma=1.0):
+        """Thresholds and effects maximised at every ``sigma_c = 1``, then those SDs.
+
+        ``sigma = 0`` is a stationary point (the likelihood is even in each SD), so the
+        search starts away from it; maximising the rest first (from the closed-form
+        thresholds and zero effects) keeps the first full Newton step from jumping there.
+        """
+        m, C = self.rows.n_levels - 1, self.n_sds
+        rest = np.concatenate([closed_form_thresholds(link, self.counts()), np.zeros(self.n_params - m - C)])
+        k, sds = len(rest), np.full(C, sigma)
+
+        def evaluate(v, order):
+            ll, g, H = self.sums(link, np.append(v, sds), order=order)
+            return ll, None if g is None else g[:k], None if H is None else H[:k, :k]
+
+        out = newton_maximize(evaluate, rest, feasible=lambda v: self.feasible(np.append(v, sds)), max_iter=50,
+                              tol=1e-6)
+        return np.append(out.params if np.all(np.isfinite(out.params)) else rest, sds)
+
 
 class RandomInterceptDesign(_GroupedDesign):
     """Design protocol object of the one-grouping-column random-intercept model.
@@ -55,6 +81,8 @@ class RandomInterceptDesign(_GroupedDesign):
     of the last evaluation are kept to warm-start the next one (they change the work, not
     the result: each evaluation iterates its modes to 1e-10).
     """
+
+    n_sds = 1
 
     def __init__(self, rows: GroupedRows, points: int):
         self.rows, self.points = rows, points
@@ -98,6 +126,7 @@ class LaplaceDesign(_GroupedDesign):
 
     def __init__(self, rows: CrossedRows):
         self.rows = rows
+        self.n_sds = rows.n_columns
         self._modes = None
 
     def evaluate(self, link, params, *, order=1):
@@ -191,24 +220,9 @@ def _drop_missing_groups(data, cols):
     return data
 
 
-def _standardise(X, w):
-    """Weighted column means and SDs (columns first shifted by their first value)."""
-    if X.shape[1] == 0:
-        return np.zeros(0), np.ones(0)
-    shift = X[0]
-    Xc = X - shift
-    centre = np.average(Xc, axis=0, weights=w)
-    sd = np.sqrt(np.average((Xc - centre) ** 2, axis=0, weights=w))
-    return shift + centre, np.where(sd > 0, sd, 1.0)
-
-
-def _user_matrix(m, mean, sd, n_sds):
-    """``A`` with ``params_user = A @ params_internal`` (the SDs are not rescaled)."""
-    p = len(mean)
-    A = np.eye(m + p + n_sds)
-    A[m:m + p, m:m + p] = np.diag(1.0 / sd)
-    A[:m, m:m + p] = (mean / sd)[None, :]
-    return A
+def _user_matrix(columns, thresholds, mean, sd, n_sds):
+    """``A`` with ``params_user = A @ params_internal``: the plain map, SDs not rescaled."""
+    return linalg.block_diag(user_scale_matrix(parallel_layout(columns, thresholds), mean, sd), np.eye(n_sds))
 
 
 def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, levels=None, quadrature=None,
@@ -237,21 +251,33 @@ def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, 
     prep = prepare(formula, data, weights=weights, levels=levels)
     coded = [pd.factorize(prep.frame.loc[prep.index, col], sort=True) for col in groups]
     m, p, C = len(prep.levels) - 1, prep.X.shape[1], len(groups)
-    used = len(prep.y) if prep.weights is None else int(np.count_nonzero(prep.weights))
-    if used < m + p + C:
-        raise OrdinalDataError(f"{used} rows for {m + p + C} parameters: fewer rows than parameters")
-    mean, sd = _standardise(prep.X, prep.weights)
+    check_enough_rows(len(prep.y) if prep.weights is None else int(np.count_nonzero(prep.weights)), m + p + C)
+    mean, sd = standardise(prep.X, prep.weights)
     design = _design_for(groups, coded, (prep.X - mean) / sd, prep, quadrature, lk)
-    start = _start(design, lk, m, C)
-    outcome = newton_maximize(lambda x, o: design.sums(lk, x, order=o), start, feasible=design.feasible,
-                              max_iter=max_iter, tol=tol, callback=callback)
-    outcome = _with_observed_hessian(design, lk, outcome)
-    converged, message, condition = check_convergence(outcome, what=f"random-intercept fit {formula!r}")
-    return build_result(prep, lk, design, outcome, _user_matrix(m, mean, sd, C), converged=converged,
-                        message=message, condition=condition, formula=formula, groups=tuple(groups),
-                        group_codes=[c for c, _ in coded], group_labels=[lab for _, lab in coded],
-                        keep_data=keep_data, options={"weights": weights, "levels": levels,
-                                                      "quadrature": design.points})
+    names = threshold_labels(prep.levels) + list(prep.columns) + [f"sd({g})" for g in groups]
+    A = _user_matrix(prep.columns, threshold_labels(prep.levels), mean, sd, C)
+    fitted = maximise(design, lk, to_user=A, names=names, max_iter=max_iter, tol=tol, callback=callback,
+                      what=f"random-intercept fit {formula!r}")
+    outcome, cov, converged, message, condition = _observed_information(design, lk, fitted, A, formula)
+    return build_result(prep, lk, design, outcome, A @ outcome.params, cov, converged=converged, message=message,
+                        condition=condition, largest_score=fitted.largest_score, formula=formula,
+                        groups=tuple(groups), group_codes=[c for c, _ in coded],
+                        group_labels=[lab for _, lab in coded], keep_data=keep_data,
+                        options={"weights": weights, "levels": levels, "quadrature": design.points})
+
+
+def _observed_information(design, link, fitted, A, formula):
+    """Covariance from the differenced exact Hessian; the fit is trusted only if it is definite."""
+    outcome = fitted.internal
+    if not np.all(np.isfinite(outcome.params)):
+        return outcome, fitted.cov, fitted.converged, fitted.message, fitted.curvature_condition
+    H = design.hessian(link, outcome.params)
+    outcome = NewtonOutcome(outcome.params, outcome.loglik, outcome.grad, H, outcome.iterations,
+                            outcome.decrement, outcome.status)
+    converged, message, condition = fitted.converged, fitted.message, fitted.curvature_condition
+    if converged:
+        converged, message, condition = check_convergence(outcome, what=f"random-intercept fit {formula!r}")
+    return outcome, covariance_on_user_scale(H, A), converged, message, condition
 
 
 def _design_for(groups, coded, Xs, prep, quadrature, link):
@@ -269,35 +295,3 @@ def _design_for(groups, coded, Xs, prep, quadrature, link):
                                "supported with several grouping columns")
     rows, _ = CrossedRows.from_rows(Xs, prep.y, np.column_stack([c for c, _ in coded]), J, prep.weights)
     return LaplaceDesign(rows)
-
-
-def _start(design, link, m, n_sds, sigma=1.0):
-    """Thresholds and effects maximised at ``sigma = 1``, then ``sigma = 1``.
-
-    ``sigma = 0`` is a stationary point (the likelihood is even in ``sigma``), so the
-    search starts away from it; maximising the rest first (from the closed-form
-    thresholds and zero effects) keeps the first full Newton step from jumping there.
-    """
-    counts = design.counts()
-    theta = link.ppf(np.cumsum(counts)[:-1] / counts.sum())
-    rest = np.concatenate([theta, np.zeros(design.n_params - m - n_sds)])
-    k = len(rest)
-    sds = np.full(n_sds, sigma)
-
-    def evaluate(v, order):
-        ll, g, H = design.sums(link, np.append(v, sds), order=order)
-        return ll, None if g is None else g[:k], None if H is None else H[:k, :k]
-
-    out = newton_maximize(evaluate, rest, feasible=lambda v: design.feasible(np.append(v, sds)), max_iter=50,
-                          tol=1e-6)
-    return np.append(out.params if np.all(np.isfinite(out.params)) else rest, sds)
-
-
-def _with_observed_hessian(design, link, outcome):
-    """Replace the Newton steps' Hessian by the differenced exact one (for covariance and checks)."""
-    if not np.all(np.isfinite(outcome.params)):
-        return outcome
-    H = design.hessian(link, outcome.params)
-    out = design.evaluate(link, outcome.params, order=1)
-    return NewtonOutcome(outcome.params, out.loglik, out.grad, H, outcome.iterations, outcome.decrement,
-                         outcome.status)
