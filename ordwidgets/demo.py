@@ -30,6 +30,13 @@ term)::
 with ``F`` the logistic distribution function.  A positive effect moves probability towards
 higher grades.  :func:`street_tree_truth` returns every true value; :func:`true_probabilities`
 evaluates the true model on any frame with the same columns.
+
+:func:`inspected_trees` adds repeated ratings: each tree is graded by one of a few dozen
+inspectors, and inspector ``k`` rates every tree ``u_k`` higher on the latent scale, with
+``u_k ~ N(0, INSPECTOR_SD^2)`` (:func:`true_inspector_effects` returns them); the rest of
+that model is the plain proportional-odds part of :func:`street_tree_truth` (no departures).
+Rows of one inspector are not independent, which is what random intercepts and
+cluster-robust standard errors are for.
 """
 from __future__ import annotations
 
@@ -40,7 +47,10 @@ import pandas as pd
 from scipy.special import expit
 
 __all__ = ["GRADES", "SPECIES", "DemoTruth", "street_trees", "street_tree_truth", "true_probabilities",
-           "true_parameters"]
+           "true_parameters", "inspected_trees", "true_inspector_effects", "INSPECTOR_SD"]
+
+#: True SD of the inspectors' effects on the latent scale in :func:`inspected_trees`.
+INSPECTOR_SD = 0.7
 
 GRADES = ("poor", "fair", "good", "excellent")
 SPECIES = ("linden", "maple", "plane", "locust")
@@ -169,9 +179,10 @@ def _linear_predictor(frame, effects):
     return eta
 
 
-def _cumulative(frame, truth):
-    """True ``P(grade <= j)`` for each row, shape ``(n, J - 1)``, written out with scipy."""
-    eta = _linear_predictor(frame, truth.effects)
+def _cumulative(frame, truth, offset=0.0):
+    """True ``P(grade <= j)`` for each row, shape ``(n, J - 1)``, written out with scipy
+    (``offset``: a latent shift per row, such as the inspector's effect)."""
+    eta = _linear_predictor(frame, truth.effects) + offset
     shift = frame["arterial"].to_numpy(float)[:, None] * np.asarray(truth.nonparallel["arterial"])
     spread = np.exp(truth.scale["years"] * frame["years"].to_numpy(float))[:, None]
     return expit((np.asarray(truth.thresholds)[None, :] - eta[:, None] - shift) / spread)
@@ -230,6 +241,44 @@ def street_trees(n=1500, *, seed=2026, nonparallel=True, heteroscedastic=True) -
     rng = np.random.default_rng(seed)
     frame = _predictors(int(n), rng)
     cum = _cumulative(frame, street_tree_truth(nonparallel=nonparallel, heteroscedastic=heteroscedastic))
+    codes = (rng.random(len(frame))[:, None] > cum).sum(axis=1)
+    frame["grade"] = pd.Categorical.from_codes(codes, categories=list(GRADES), ordered=True)
+    return frame
+
+
+def true_inspector_effects(n_inspectors=30, *, seed=2026, sd=INSPECTOR_SD) -> pd.Series:
+    """The true latent effect of each inspector in :func:`inspected_trees` (positive = grades higher).
+
+    Drawn from their own generator (seeded by ``(seed, 1)``), so they do not depend on ``n``.
+    """
+    rng = np.random.default_rng([seed, 1])
+    names = [f"I{k:02d}" for k in range(1, n_inspectors + 1)]
+    return pd.Series(rng.normal(0.0, sd, n_inspectors), index=pd.Index(names, name="inspector"), name="effect")
+
+
+def inspected_trees(n=1500, *, seed=2026, n_inspectors=30, sd=INSPECTOR_SD) -> pd.DataFrame:
+    """Street trees each graded by one of ``n_inspectors`` inspectors with their own leniency.
+
+    ``P(grade <= j | x, inspector k) = F(theta_j - x'beta - u_k)``, ``u_k ~ N(0, sd^2)``, with
+    ``theta`` and ``beta`` those of ``street_tree_truth(nonparallel=False,
+    heteroscedastic=False)`` and ``u`` from :func:`true_inspector_effects`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        The columns of :func:`street_trees` plus ``inspector`` (``"I01"`` ...).
+    """
+    if not isinstance(n, (int, np.integer)) or n < 1:
+        raise ValueError(f"n must be a positive integer, got {n!r}")
+    rng = np.random.default_rng(seed)
+    frame = _predictors(int(n), rng)
+    effects = true_inspector_effects(n_inspectors, seed=seed, sd=sd)
+    who = rng.integers(0, n_inspectors, len(frame))
+    frame["inspector"] = effects.index.to_numpy()[who]
+    truth = street_tree_truth(nonparallel=False, heteroscedastic=False)
+    cum = _cumulative(frame, DemoTruth(effects={**truth.effects, "arterial": truth.arterial_parallel},
+                                         nonparallel={"arterial": (0.0, 0.0, 0.0)}, scale={"years": 0.0}),
+                      offset=effects.to_numpy()[who])
     codes = (rng.random(len(frame))[:, None] > cum).sum(axis=1)
     frame["grade"] = pd.Categorical.from_codes(codes, categories=list(GRADES), ordered=True)
     return frame
