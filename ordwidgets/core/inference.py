@@ -257,7 +257,7 @@ def compare(smaller, larger):
     ``statistic = 2 (loglik_larger - loglik_smaller)`` is referred to a chi-squared
     distribution with ``df`` = the difference in the number of parameters (Wilks 1938).
     A plain fit against a random-intercept fit tests ``sigma = 0`` with the boundary
-    mixture (:func:`ordwidgets.core.mixed_results.compare_random_part`).
+    mixture (:meth:`RandomInterceptFit.random_part_test`).
 
     Raises
     ------
@@ -272,9 +272,7 @@ def compare(smaller, larger):
         ``statistic``, ``df``, ``p_value`` (the last three on the ``"larger"`` row).
     """
     if getattr(larger, "groups", ()) and not getattr(smaller, "groups", ()):
-        from .mixed_results import compare_random_part
-
-        return compare_random_part(smaller, larger)
+        return larger.random_part_test(smaller)  # sigma = 0 on its boundary (RandomInterceptFit)
     _check_same_rows(smaller, larger)
     _check_nested(smaller, larger)
     df = larger.n_params - smaller.n_params

@@ -133,6 +133,10 @@ class RandomInterceptFit(FitResult):
                                    "(variance_components); use method='wald' for the fixed part")
         return super().intervals(level, method="wald")
 
+    def random_part_test(self, plain) -> pd.DataFrame:
+        """Likelihood-ratio test of ``sigma = 0`` against ``plain`` (see :func:`compare_random_part`)."""
+        return compare_random_part(plain, self)
+
     def proportional_odds_test(self):
         raise OrdinalDataError("proportional-odds tests are not available for random-intercept fits yet")
 
