@@ -51,7 +51,7 @@ def test_cluster_covariance_from_independent_cluster_scores(link):
     reference.hessian (scipy.differentiate) and s_g from the cluster log-likelihoods."""
     df, X, y, site, _ = data()
     res = ow.fit("grade ~ x0 + x1", df, link=link, cluster="site")
-    assert res.covariance_type == "cluster"
+    assert res.covariance_type == "cluster" and "cluster-robust" in res._repr_html_()
     C = np.linalg.inv(-R.hessian(res.params, X, y, 3, link))
     S = cluster_score_sums(res.params, X, y, site, link)
     G = len(S)

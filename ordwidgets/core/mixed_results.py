@@ -29,7 +29,7 @@ from .exceptions import ComparisonError, OrdinalDataError
 from .layout import parallel_layout
 from .optimize import newton_maximize
 from .probabilities import category_probabilities
-from .results import FitResult, TrainingData, render_html
+from .results import FitResult, TrainingData
 
 __all__ = ["RandomInterceptFit", "build_result", "compare_random_part", "GROUP_KINDS"]
 
@@ -113,17 +113,16 @@ class RandomInterceptFit(FitResult):
     def table(self, level=0.95) -> pd.DataFrame:
         """Fixed part as for plain fits, then one ``sd(<column>)`` row per grouping column.
 
-        The SD rows carry the estimate and its standard error; ``z`` and ``p_value`` are left
-        empty (a Wald test of an SD on its boundary is not valid: use
-        ``compare(plain, mixed)``) and the interval columns hold the profile interval.
+        The SD rows carry the estimate and its standard error only: ``z``, ``p_value`` and
+        the Wald interval are left empty (a Wald test or interval of an SD near its boundary
+        at 0 is not valid); the test is ``compare(plain, mixed)`` and the interval the
+        profile-likelihood one of :attr:`variance_components`.
         """
         tab = super().table(level)
-        vc = self.sd_intervals(level)
         k = len(self.params)
         se = np.sqrt(np.maximum(np.diag(self.full_cov)[k:], 0.0))
         extra = pd.DataFrame(np.nan, index=[f"sd({g})" for g in self.groups], columns=tab.columns)
-        extra.iloc[:, 0], extra.iloc[:, 1] = self.sds, se
-        extra.iloc[:, -2], extra.iloc[:, -1] = vc["lower"].to_numpy(), vc["upper"].to_numpy()
+        extra["estimate"], extra["std_error"] = self.sds, se
         return pd.concat([tab, extra])
 
     def intervals(self, level=0.95, *, method="wald") -> pd.DataFrame:
@@ -244,14 +243,6 @@ class RandomInterceptFit(FitResult):
         return total
 
     # ---- display --------------------------------------------------------------------------
-    def facts(self) -> dict:
-        facts = super().facts()
-        points = self.options.get("quadrature")
-        facts["random intercepts"] = ", ".join(self.groups)
-        facts["quadrature"] = "Laplace" if points == 1 else f"adaptive Gauss-Hermite, {points} points"
-        facts["log-likelihood"] = self.loglik
-        return facts
-
     def __str__(self) -> str:
         return super().__str__() + "\n\nVariance components (latent scale)\n" + self.variance_components.to_string()
 
@@ -266,11 +257,13 @@ class RandomInterceptFit(FitResult):
             + "".join(f"<td style='text-align:right;padding:2px 8px'>{v:.4g}</td>" for v in r[["sd", "lower", "upper"]])
             + f"<td style='text-align:right;padding:2px 8px'>{int(r['n_groups']):,}</td></tr>"
             for g, r in vc.iterrows())
+        points = self.options.get("quadrature")
+        method = "Laplace approximation" if points == 1 else f"adaptive Gauss-Hermite quadrature, {points} points"
         block = ("<div class='ow-variance-components' style='margin-top:6px'><b>Random intercepts</b> "
-                 "(SD on the latent scale; 95% profile-likelihood interval)"
+                 f"(SD on the latent scale; 95% profile-likelihood interval; marginal likelihood by {e(method)})"
                  "<table style='border-collapse:collapse'><tr><th>grouping</th><th>sd</th><th>lower</th>"
                  f"<th>upper</th><th>groups</th></tr>{rows}</table></div>")
-        base = render_html(self)
+        base = super()._repr_html_()
         return base[: -len("</div>")] + block + "</div>"
 
 

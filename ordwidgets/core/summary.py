@@ -13,7 +13,7 @@ import numpy as np
 from .layout import effect_groups, model_facts
 
 __all__ = ["weighting_text", "weighting_of", "level_counts", "data_line", "fit_line", "solver_sentence", "summary_facts",
-           "render_text", "render_html", "curvature_words", "fmt_value"]
+           "render_text", "render_html", "curvature_words", "fmt_value", "covariance_fact"]
 
 #: Condition numbers of the curvature ``-H`` up to which the fit is called "well conditioned",
 #: then "poorly conditioned" (common practice, no source: about half and three quarters of the
@@ -93,7 +93,17 @@ def summary_facts(res) -> dict:
     sample = {} if res.training is None or not res.training.is_sample else {
         "rows shown": res.training.describe()}
     return {"link": f"{res.link.name} (latent {res.link.latent})", **model_facts(res), "data": data_line(res),
-            **sample, "fit": fit_line(res), "solver": solver_sentence(res)}
+            **sample, "fit": fit_line(res), **covariance_fact(res), "solver": solver_sentence(res)}
+
+
+def covariance_fact(res) -> dict:
+    """``{"std. errors": ...}`` when the covariance is not the model-based one (else empty)."""
+    kind = getattr(res, "covariance_type", "model")
+    if kind == "cluster":
+        return {"std. errors": f"cluster-robust sandwich, {res.options.get('n_clusters'):,} clusters"}
+    if kind == "sampling":
+        return {"std. errors": "sandwich for sampling weights (Binder 1983)"}
+    return {}
 
 
 def render_text(res, sign_convention) -> str:
