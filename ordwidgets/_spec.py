@@ -11,34 +11,44 @@ import pandas as pd
 
 from .core import compare_links
 from .core.design import split_formula
+from .core.naming import parsed_terms, quote_name
 
 __all__ = ["variables", "without", "is_categorical", "complete_scenario", "match_dtypes",
            "model_kwargs", "link_rows", "default_value", "weighted_median", "value_range", "grid_values"]
 
 
-def _formula(rhs):
-    from formulaic import Formula
-
-    return Formula(rhs)
-
-
 def variables(formula) -> list:
-    """Predictor variables named on the right of ``formula``, in order of first use."""
+    """Predictor variables named on the right of ``formula``, in order of first use.
+
+    Column names that need quoting in a formula (spaces, ``-``, quotes, integers) come back as
+    the plain column names, e.g. ``"street width"`` for the term ```street width```.
+    """
     if not formula:
         return []
     _, rhs = split_formula(formula)
     out = []
-    for term in _formula(rhs):
+    for term in parsed_terms(rhs):
         out += [v for v in _term_variables(term) if v not in out]
     return out
 
 
 def _term_variables(term):
-    text = str(term)
-    if text == "1":
-        return []
-    found = sorted(map(str, _formula(text).required_variables))
-    return sorted(found, key=lambda v: text.find(v))
+    """Columns read by one parsed term, in the order they appear in its text."""
+    found = []
+    for factor in term:
+        names = sorted(factor.variables, key=lambda v: (_position(factor.expr, v), v))
+        found += [v for v in names if v not in found]
+    return found
+
+
+def _position(text, name):
+    at = text.find(quote_name(name))
+    return at if at >= 0 else text.find(name)
+
+
+def _term_text(term) -> str:
+    """Formula text of one parsed term; lookup factors re-quoted where their names need it."""
+    return ":".join(quote_name(f.expr) if f.method == "lookup" else f.expr for f in term)
 
 
 def without(formula, dropped) -> str:
@@ -46,13 +56,14 @@ def without(formula, dropped) -> str:
     if not dropped:
         return formula
     lhs, rhs = split_formula(formula)
-    keep = [str(t) for t in _formula(rhs) if str(t) != "1" and not set(_term_variables(t)) & set(dropped)]
+    keep = [_term_text(t) for t in parsed_terms(rhs) if not set(_term_variables(t)) & set(dropped)]
     return f"{lhs} ~ {' + '.join(keep) if keep else '1'}"
 
 
 def is_categorical(column, name, formula) -> bool:
     """Non-numeric, boolean, or wrapped in ``C(...)`` in the formula."""
-    if re.search(r"\bC\(\s*" + re.escape(name) + r"\b", formula or ""):
+    wrapped = "|".join(re.escape(t) for t in {str(name), quote_name(name)})
+    if re.search(r"\bC\(\s*(?:" + wrapped + r")(?![\w`])", formula or ""):
         return True
     dtype = column.dtype
     return pd.api.types.is_bool_dtype(dtype) or not pd.api.types.is_numeric_dtype(dtype)

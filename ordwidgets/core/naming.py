@@ -31,12 +31,14 @@ def quote_name(name) -> str:
     Raises
     ------
     OrdinalDataError
-        If the name holds a backtick (a formula cannot quote it) or is empty.
+        If the name holds a backtick, a backslash or "~" (a formula cannot quote them), is
+        empty, or is "1" or ".".
     """
     text = str(name)
-    if "`" in text or not text.strip() or text == "1":
+    if any(c in text for c in "`\\~") or not text.strip() or text in ("1", "."):
         raise OrdinalDataError(f"column name {text!r} cannot be written in a formula (it is empty, holds a "
-                               "backtick, or is 1, which a formula reads as the intercept); rename the column")
+                               "backtick, a backslash or '~', or is '1' or '.', which a formula reads as "
+                               "the intercept or as 'all other columns'); rename the column")
     if _PLAIN.fullmatch(text) and not keyword.iskeyword(text):
         return text
     return f"`{text}`"
