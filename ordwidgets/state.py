@@ -98,6 +98,7 @@ class FitState(tl.HasTraits):
             data = getattr(res.training, "frame", None) if res.training is not None else None
         if data is None:
             raise ValueError("from_fit needs data=: this result does not hold its data frame")
+        _refuse_unsupported_fit(res)
         opts = {k: v for k, v in dict(res.options).items() if k in ("weights", "levels") and v is not None}
         extra = {k: tuple(res.options.get(k) or ()) for k in ("nonparallel", "scale_by")}
         return cls(data=data, formula=res.formula, link=res.link.name, options=opts, fit=res, **extra, **kwargs)
@@ -416,6 +417,7 @@ class FitState(tl.HasTraits):
         return core_fit(self.model_formula, self.data, link=self.link, **kwargs)
 
     def _install(self, res):
+        _refuse_unsupported_fit(res)
         problem = unusable(res)
         if problem:
             raise OrdinalDataError(f"cannot show this fit: {problem}")
@@ -630,4 +632,24 @@ def n_training(res) -> int:
     """Rows the fit holds for residuals and edited log-likelihoods (a sample for Dask fits)."""
     return res.n_training
 
+
+def _refuse_unsupported_fit(res):
+    """Refuse fits whose random part or robust covariance the panels cannot carry yet.
+
+    The panels refit, compare links and test proportional odds with the plain model; shown
+    around a random-intercept fit or a cluster/sampling covariance they would present numbers
+    of another model (model-based standard errors, no random part) as if they were this fit's.
+    """
+    groups = list(dict(res.options).get("random_intercepts") or ())
+    if groups:
+        raise OrdinalDataError(
+            f"the panels do not carry random intercepts yet (grouping column(s) {', '.join(map(repr, groups))}): "
+            "their refits, link comparison and proportional-odds tests would use the plain model; "
+            "work with the result in code (res.group_effects, res.predict(groups=...)) or show the plain fit")
+    kind = getattr(res, "covariance_type", "model")
+    if kind != "model":
+        what = f"clustered by {res.options.get('cluster')!r}" if kind == "cluster" else "from sampling weights"
+        raise OrdinalDataError(
+            f"the panels do not carry a {kind} (sandwich) covariance yet ({what}): their tests and intervals "
+            "would use model-based standard errors; show the fit with the default covariance instead")
 
