@@ -93,9 +93,7 @@ def test_cycle_finder_finds_a_planted_loop():
     assert _cycles({"a": {"b"}, "b": set()}) == []
 
 
-# The link comparison still lives in inference.py and refits through fitting (a loop through
-# results' lazy import of inference); it is being moved to a module of its own, above
-# fitting.  Until then that one edge is left out; every other edge counts.
+# compare_links lives in link_ranking.py, above fitting, so no edge needs excusing.
 PENDING: set = set()  # no edge is excused: the graph must have no loop at all
 
 
