@@ -131,6 +131,19 @@ def test_collinear_and_constant_predictors_refused(frame):
         ow.fit("rating ~ dose + one", ddf)
 
 
+def test_transform_giving_non_finite_values_refused_by_term(frame):
+    # In memory those rows are dropped with a warning; on partitions the counts are fixed before
+    # the design exists, so the fit must refuse by name instead of reporting a wrong reason.
+    shifted = frame.assign(gap=frame.dose - frame.dose.median())  # about half the rows <= 0
+    ddf = dd.from_pandas(shifted, npartitions=3)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # numpy's own 'invalid value in log'
+        with pytest.raises(ow.OrdinalDataError, match=r"'np.log\(gap\)' \([\d,]+ rows in one partition\)"):
+            ow.fit("rating ~ np.log(gap)", ddf)
+        with pytest.warns(ow.DataWarning):
+            ow.fit("rating ~ np.log(gap)", shifted)  # the in-memory rule it points to
+
+
 def test_empty_response_level_dropped_like_in_memory(frame):
     labels = ["none", *frame["rating"].cat.categories]
     df = frame.assign(rating=pd.Categorical(frame["rating"].astype(str), categories=labels, ordered=True))

@@ -147,7 +147,24 @@ def design_arrays(part, plan):
     if not plan.names:
         return np.empty((len(rows), 0)), y, w, rows
     mm = plan.spec.get_model_matrix(formula_input(rows, plan.categorical), na_action="ignore")
-    return np.asfortranarray(mm[list(plan.names)].to_numpy(float)), y, w, rows
+    X = np.asfortranarray(mm[list(plan.names)].to_numpy(float))
+    _refuse_non_finite(X, plan.names)
+    return X, y, w, rows
+
+
+def _refuse_non_finite(X, names):
+    """Refuse design columns that a transform made missing or infinite (e.g. ``np.log`` of 0).
+
+    In memory such rows are dropped with a warning; on a Dask frame the rows and levels are
+    counted before the design exists, so dropping here would change counts already used.
+    """
+    bad = ~np.isfinite(X).all(axis=0)
+    if bad.any():
+        counts = (~np.isfinite(X[:, bad])).sum(axis=0)
+        which = ", ".join(f"{str(n)!r} ({c:,} rows in one partition)" for n, c in zip(np.asarray(names)[bad], counts))
+        raise OrdinalDataError(f"predictor terms give missing or infinite values: {which}; on a Dask frame "
+                               "such rows are not dropped automatically: filter them out first (for "
+                               "example keep x > 0 for np.log(x)) or fit the frame in memory")
 
 
 def moment_partition(part, number, plan, cutoff, seed):
