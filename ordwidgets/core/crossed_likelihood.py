@@ -24,7 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import linalg, sparse
 
-from .grouped_likelihood import parameter_sums, shift_derivatives, shift_terms
+from .grouped_likelihood import parameter_sums, shift_derivatives, shift_terms, sorted_codes, sorted_counts
 from .links import get_link
 from .objective import sort_by_category
 from .optimize import ascent_direction
@@ -81,11 +81,10 @@ class CrossedRows:
 
     @property
     def codes_1d(self):
-        return np.repeat(np.arange(self.n_levels), np.diff(self.bounds))
+        return sorted_codes(self.bounds)
 
     def counts(self):
-        w = np.ones(len(self.codes)) if self.weights is None else self.weights
-        return np.bincount(self.codes_1d, weights=w, minlength=self.n_levels)
+        return sorted_counts(self.bounds, self.weights)
 
     def w(self, v):
         return v if self.weights is None else self.weights * v
