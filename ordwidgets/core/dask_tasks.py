@@ -147,9 +147,7 @@ def design_arrays(part, plan):
     if not plan.names:
         return np.empty((len(rows), 0)), y, w, rows
     mm = plan.spec.get_model_matrix(formula_input(rows, plan.categorical), na_action="ignore")
-    X = np.asfortranarray(mm[list(plan.names)].to_numpy(float))
-    _refuse_non_finite(X, plan.names)
-    return X, y, w, rows
+    return np.asfortranarray(mm[list(plan.names)].to_numpy(float)), y, w, rows
 
 
 def _refuse_non_finite(X, names):
@@ -184,6 +182,7 @@ def moment_partition(part, number, plan, cutoff, seed):
         ranges, for the separation check).
     """
     X, y, w, rows = design_arrays(part, plan)
+    _refuse_non_finite(X, plan.names)  # the first pass that builds the design; later passes repeat it
     wt = np.ones(len(y)) if w is None else w
     total = float(wt.sum())
     mean = (wt @ X) / total if total > 0 else np.zeros(X.shape[1])
