@@ -42,6 +42,18 @@ def test_slider_edits_set_the_state_and_crossing_is_refused_on_screen(panel):
     check_threshold_panel(panel)
 
 
+def test_top_slider_stops_at_its_end_and_the_state_follows_the_slider(panel):
+    """Found by the random UI sequences: the last slider sits at its maximum after a long move, and a
+    further move past the end is clamped by the slider itself (ipywidgets behaviour), so it is no edit."""
+    st = panel.state
+    last = panel.sliders[-1]
+    last.value = last.max
+    assert st.thresholds[-1] == last.value == last.max and panel.message.value == ""
+    before = st.thresholds
+    last.value = before[-1] + 1.0
+    assert st.thresholds == before and last.value == before[-1] and panel.message.value == ""
+
+
 def test_frontend_rounding_echo_is_not_an_edit(panel):
     st, n0 = panel.state, panel.state.updates
     slider = panel.sliders[1]
