@@ -109,3 +109,27 @@ def test_extended_fits_show_the_core_probabilities(panel, extra):
     eta, sigma = panel.scenario_cuts()[:2]
     mass = np.diff(np.concatenate([[0.0], st.fit.link.dist.cdf((cuts - eta) / sigma), [1.0]]))
     np.testing.assert_allclose(mass, probs, atol=1e-12)
+
+
+def _contrast_to_white(hex_colour):
+    """WCAG 2.1 contrast ratio against white, written from the W3C definition of relative
+    luminance (https://www.w3.org/TR/WCAG21/#dfn-relative-luminance), independent of the panel."""
+    channels = []
+    for i in (1, 3, 5):
+        c = int(hex_colour[i:i + 2], 16) / 255
+        channels.append(c / 12.92 if c <= 0.03928 else ((c + 0.055) / 1.055) ** 2.4)
+    lum = 0.2126 * channels[0] + 0.7152 * channels[1] + 0.0722 * channels[2]
+    return 1.05 / (lum + 0.05)
+
+
+def test_probability_labels_read_on_white_in_their_regions_hue(panel):
+    regions, labels = list(panel.regions.colors), list(panel.labels.colors)
+    assert len(labels) == len(regions) >= 4
+    pale = [c for c in regions if _contrast_to_white(c) < 4.5]
+    assert pale  # the ramp's yellow and teal are too pale for text as they are
+    for region, label in zip(regions, labels):
+        assert _contrast_to_white(label) >= 4.5  # WCAG 2.1 level AA for normal text
+        r, l = (np.array([int(c[i:i + 2], 16) for i in (1, 3, 5)], float) for c in (region, label))
+        # same hue: the label is the region's colour scaled towards black (to rounding)
+        scale = l.sum() / r.sum()
+        assert scale <= 1.0 and np.allclose(l, scale * r, atol=1.5)

@@ -45,6 +45,32 @@ def category_colours(k) -> list:
     return ["#%02x%02x%02x" % tuple(int(round(c)) for c in row) for row in rgb][:k]
 
 
+def _relative_luminance(rgb) -> float:
+    """WCAG 2.x relative luminance of an sRGB colour given as 0..255 numbers."""
+    c = np.asarray(rgb, float) / 255.0
+    lin = np.where(c <= 0.03928, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
+    return float(lin @ [0.2126, 0.7152, 0.0722])
+
+
+def text_colours(colours, ratio=4.5) -> list:
+    """Each colour darkened (towards black, same hue) until text in it reads on white.
+
+    The contrast ratio to white, (1.05) / (L + 0.05) with L the WCAG 2.x relative luminance, is at
+    least ``ratio`` (4.5 is WCAG's level for normal text).  Labels drawn over or beside a shaded region
+    then keep the region's hue without the pale yellows and teals of the ramp fading into the page.
+    """
+    out = []
+    for colour in colours:
+        rgb = np.array([int(colour[i:i + 2], 16) for i in (1, 3, 5)], float)
+        shade = rgb
+        for k in range(101):
+            shade = rgb * (1.0 - k / 100.0)
+            if 1.05 / (_relative_luminance(shade) + 0.05) >= ratio:
+                break
+        out.append("#%02x%02x%02x" % tuple(int(round(v)) for v in shade))
+    return out
+
+
 def level_legend(levels, colours) -> str:
     """HTML chips naming each level in its colour (labels escaped)."""
     return " ".join(

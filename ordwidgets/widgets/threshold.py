@@ -7,7 +7,7 @@ import numpy as np
 
 from ..state import ThresholdEditError
 from ._common import (PanelBase, category_colours, esc, figure_toolbar, fmt, is_echo, level_legend, make_figure,
-                      rule_xy)
+                      rule_xy, text_colours)
 
 __all__ = ["ThresholdPanel", "latent_range"]
 
@@ -84,7 +84,7 @@ class ThresholdPanel(PanelBase):
         colours = category_colours(len(self.state.fit.levels))
         self.regions.colors, self.regions.fill_colors = colours, colours
         self.regions.fill_opacities = [0.5] * len(colours)
-        self.labels.colors = colours  # each probability in the colour of the region it labels
+        self.labels.colors = text_colours(colours)  # each probability in its region's hue, dark enough to read
         extended = not self.state.fit.layout.is_parallel
         self.note.value = ("<i>non-parallel or scale effects: the rules are the cut points at this scenario; "
                            "the sliders move the base thresholds</i>" if extended else "")
