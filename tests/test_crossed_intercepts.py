@@ -83,7 +83,9 @@ def test_one_column_laplace_is_the_one_point_quadrature():
 
 def test_crossed_fit_is_a_stationary_point_of_the_reference():
     """At ow.fit's estimates the scipy-built Laplace likelihood has the same value and a
-    zero gradient (central differences of the reference, step 1e-4)."""
+    zero gradient (central differences of the reference, step 1e-3: the reference's own inner
+    optimisation and numerical Hessian carry noise of about 1e-7 in its value, which a step of 1e-4
+    turns into gradient noise of 1e-3; the truncation error at 1e-3 is of order 1e-6)."""
     X, y, codes, w = crossed(n=150, sizes=(5, 3))
     df = pd.DataFrame({"x0": X[:, 0], "x1": X[:, 1], "rater": codes[:, 0], "year": codes[:, 1], "w": w,
                        "grade": pd.Categorical(y, categories=range(M + 1), ordered=True)})
@@ -92,9 +94,9 @@ def test_crossed_fit_is_a_stationary_point_of_the_reference():
     est = np.concatenate([res.params, res.sds])
     ref = lambda v: reference_laplace(v, X, y, codes, "logit", w)  # noqa: E731
     assert res.loglik == pytest.approx(ref(est), abs=1e-6)
-    h = 1e-4
+    h = 1e-3
     grad = [(ref(est + h * e) - ref(est - h * e)) / (2 * h) for e in np.eye(len(est))]
-    assert np.max(np.abs(grad)) < 2e-3
+    assert np.max(np.abs(grad)) < 1e-3
 
 
 def test_nested_fit_outputs():
