@@ -145,7 +145,11 @@ def sort_by_category(y, n_levels):
         Category ``k`` occupies ``order[bounds[k]:bounds[k+1]]``.
     """
     y = np.asarray(y)
-    order = np.argsort(y, kind="stable")
+    # the same stable order from the smallest code type: numpy sorts 8- and 16-bit integers
+    # stably by radix (one pass), wider ones by merging
+    small = np.uint8 if n_levels <= 2 ** 8 else np.uint16 if n_levels <= 2 ** 16 else None
+    codes = y.astype(small) if small is not None and y.size and y.min() >= 0 else y
+    order = np.argsort(codes, kind="stable")
     counts = np.bincount(y, minlength=n_levels)
     return order, np.concatenate([[0], np.cumsum(counts)])
 

@@ -316,12 +316,11 @@ class _Accumulator:
         huu, hll, hul = weigh(t["huu"]), weigh(t["hll"]), weigh(t["hul"])
         cu, cl = _plus(huu, hul), _plus(hll, hul)
         if self.p:
-            G = X.T @ np.column_stack([v for v in (gsum, cu, cl) if v is not None])
-            g[b] -= G[:, 0]
-            if cu is not None:
-                C[k, b] -= G[:, 1]
+            g[b] -= X.T @ gsum  # one matrix-vector product each: a product with a few
+            if cu is not None:  # columns waits for BLAS threads on a busy machine
+                C[k, b] -= X.T @ cu
             if cl is not None:
-                C[k - 1, b] -= G[:, -1]
+                C[k - 1, b] -= X.T @ cl
             H[b, b] += _weighted_gram(X, _plus(cu, cl) if hul is None else cu + cl)
         if huu is not None:
             H[k, k] += huu.sum()
