@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 
 import ordwidgets as ow
-from ordwidgets.widgets._common import category_colours, esc, heading_html, nice_ticks
+from ordwidgets.widgets._common import category_colours, esc, heading_html, nice_ticks, text_colours
 from ordwidgets.widgets.dashboard import CAUTION
 
 from tests.ow_checks import *  # noqa: F403 - fixtures, data and reference checks
@@ -64,10 +64,13 @@ def test_heading_escapes_data_derived_names(data):
     assert "<script>" not in html and "&lt;script&gt;" in html and "<b>x</b>" not in html
 
 
-def test_probability_labels_take_the_colours_of_their_regions(make_panel):
+def test_probability_labels_take_the_hues_of_their_regions(make_panel):
     panel = make_panel(ow.ThresholdPanel)
     k = len(panel.state.fit.levels)
-    assert list(panel.labels.colors) == list(panel.regions.fill_colors) == category_colours(k)
+    assert list(panel.regions.fill_colors) == category_colours(k)
+    # the labels: the region colours darkened only where too pale to read (contrast tested in
+    # test_widgets_threshold against the W3C formula)
+    assert list(panel.labels.colors) == text_colours(category_colours(k))
     assert len(panel.labels.text) == k  # one label per region, in the same order
     # each label sits over its own region: its x is the middle of that region's x range
     np.testing.assert_allclose(panel.labels.x, np.asarray(panel.regions.x).mean(axis=1))
