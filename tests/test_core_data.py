@@ -149,3 +149,25 @@ def test_not_converged_warns(df):
     with pytest.warns(ow.ConvergenceWarning, match="no convergence after 1 Newton steps"):
         res = ow.fit("grade ~ wait + crowding", df, max_iter=1)
     assert not res.converged and "NOT converged" in res._repr_html_()
+
+
+def test_numeric_columns_read_straight_from_the_frame_equal_formulaic_encoding():
+    """Reference: formulaic's own model_matrix on all rows.  When every term is a numeric
+    column the design is copied from the frame (the spec learnt from a few rows); it must
+    be the same matrix, and the spec must encode new rows as formulaic does."""
+    from formulaic import model_matrix
+
+    from ordwidgets.core.design import SPEC_ROWS, design_matrix
+
+    rng = np.random.default_rng(4)
+    n = 5 * SPEC_ROWS
+    data = pd.DataFrame({"girth": rng.normal(size=n), "age": rng.integers(1, 90, n),
+                         "street width": pd.array(rng.normal(size=n), dtype="Float64")})
+    rhs = "girth + age + `street width`"
+    X, names, spec = design_matrix(rhs, data)
+    ref = model_matrix(rhs, data, na_action="ignore").drop(columns="Intercept")
+    assert names == tuple(ref.columns) == ("girth", "age", "street width")
+    np.testing.assert_array_equal(X, ref.to_numpy(dtype=float))
+    new = data.iloc[SPEC_ROWS:].sample(frac=1.0, random_state=0)
+    np.testing.assert_array_equal(spec.get_model_matrix(new, na_action="ignore").to_numpy(dtype=float),
+                                  model_matrix(rhs, new, na_action="ignore").to_numpy(dtype=float))

@@ -166,7 +166,11 @@ def unusable_rows(data, response, columns, w):
         cols["(weights)"] = w
     bad = np.zeros(len(data), dtype=bool)
     counts = {}
+    clean = {name for name, col in cols.items() if _all_finite(col)}
     for name, col in cols.items():
+        if name in clean:
+            counts[name] = 0
+            continue
         miss = np.isnan(col.to_numpy()) if _plain_float(col) else col.isna().to_numpy()
         counts[name] = np.count_nonzero(miss)
         bad |= miss
@@ -174,7 +178,9 @@ def unusable_rows(data, response, columns, w):
     rows, counts = np.zeros(len(data), dtype=bool), {}
     for c in columns:
         col = data[c]
-        if pd.api.types.is_numeric_dtype(col.dtype):
+        if c in clean:
+            counts[c] = 0
+        elif pd.api.types.is_numeric_dtype(col.dtype):
             inf = np.isinf(col.to_numpy() if _plain_float(col) else col.to_numpy(dtype=float, na_value=np.nan))
             counts[c] = np.count_nonzero(inf)
             rows |= inf
@@ -183,6 +189,15 @@ def unusable_rows(data, response, columns, w):
         bad |= rows
     bad = pd.Series(bad, index=data.index)
     return ~bad, tally
+
+
+def _all_finite(col):
+    """A numpy float column with no missing or infinite value, known from one sum (``nan``
+    and ``inf`` propagate; a sum that overflows only sends the column to the cell checks)."""
+    if not _plain_float(col):
+        return False
+    with np.errstate(over="ignore", invalid="ignore"):
+        return bool(np.isfinite(np.add.reduce(col.to_numpy())))
 
 
 def _plain_float(col):
@@ -210,18 +225,51 @@ def _drop_unusable(data, response, columns, w):
     return keep, notes
 
 
-def design_matrix(rhs, data):
-    from formulaic import model_matrix
+#: Rows formulaic reads to learn the model spec when every term is a numeric column.
+SPEC_ROWS = 8
 
-    try:
-        mm = model_matrix(rhs, data, na_action="ignore")
-    except Exception as exc:
-        raise OrdinalDataError(f"cannot build the design for {rhs!r}: {exc}") from exc
+
+def design_matrix(rhs, data):
+    """The design columns of ``rhs`` on ``data``: Fortran-order array, names, model spec.
+
+    When every term is a numeric data column the columns are copied straight from the frame
+    and formulaic builds the model spec from the first rows only (such columns have no
+    state to learn); otherwise formulaic encodes all rows.
+    """
+    bare = _numeric_column_terms(rhs, data)
+    mm = _model_matrix(rhs, data.iloc[:SPEC_ROWS] if bare else data)
     cols = [c for c in mm.columns if c != "Intercept"]
+    if bare and [str(c) for c in cols] != bare:  # formulaic read the terms otherwise: all rows
+        bare, mm = None, _model_matrix(rhs, data)
+        cols = [c for c in mm.columns if c != "Intercept"]
     nonnum = [c for c in cols if not pd.api.types.is_numeric_dtype(mm[c].dtype)]
     if nonnum:
         raise OrdinalDataError(f"predictor columns are not numeric: {', '.join(nonnum)}")
-    return _column_major(mm, cols, len(data)), tuple(str(c) for c in cols), mm.model_spec
+    X = _column_major(data, bare, len(data)) if bare else _column_major(mm, cols, len(data))
+    return X, tuple(str(c) for c in cols), mm.model_spec
+
+
+def _model_matrix(rhs, data):
+    from formulaic import model_matrix
+
+    try:
+        return model_matrix(rhs, data, na_action="ignore")
+    except Exception as exc:
+        raise OrdinalDataError(f"cannot build the design for {rhs!r}: {exc}") from exc
+
+
+def _numeric_column_terms(rhs, data):
+    """The column names when every term of ``rhs`` is one numeric (not boolean) data column,
+    else ``None``."""
+    names = []
+    for term in parsed_terms(rhs):
+        if len(term) != 1 or term[0].method != "lookup" or term[0].expr not in data.columns:
+            return None
+        dtype = data[term[0].expr].dtype
+        if not pd.api.types.is_numeric_dtype(dtype) or pd.api.types.is_bool_dtype(dtype):
+            return None
+        names.append(term[0].expr)
+    return names or None
 
 
 def _column_major(frame, cols, n):
@@ -298,23 +346,25 @@ def prepare(formula, data, *, weights=None, levels=None):
     y, lv = encode_response(data[response], levels, name=response)
     X, names, spec = design_matrix(rhs, data)
     warr = None if w is None else w[keep.to_numpy()].to_numpy(float)
-    finite, more = _finite_design_rows(X, names)
+    peaks = _column_peaks(X) if X.size else None
+    finite, more = _finite_design_rows(X, names, peaks)
     if finite is not None:
         data, X, y = data[finite], np.asfortranarray(X[finite]), y[finite]
         warr = None if warr is None else warr[finite]
-    check_magnitudes(X, names)
+        peaks = None
+    check_magnitudes(X, names, peaks=peaks)
     y, lv, levels_notes = _drop_empty_levels(y, lv, warr, response)
     notes += more + levels_notes
     return PreparedData(X, y, warr, lv, names, response, rhs, spec, data.index, notes, frame=data)
 
 
-def _finite_design_rows(X, names):
+def _finite_design_rows(X, names, peaks=None):
     """Rows whose design values are all finite (``None`` when every row is), with the note.
 
-    One pass of column minima and maxima (they propagate ``nan``) decides whether any row
-    needs looking at.
+    One pass of column minima and maxima (they propagate ``nan``; ``peaks`` when already
+    known) decides whether any row needs looking at.
     """
-    if not X.size or np.isfinite(_column_peaks(X)).all():
+    if not X.size or np.isfinite(_column_peaks(X) if peaks is None else peaks).all():
         return None, []
     bad = ~np.isfinite(X)
     counts = bad.sum(axis=0)
@@ -336,11 +386,12 @@ MAX_MAGNITUDE = 1e100
 MAX_DESIGN_BYTES = 2 ** 31
 
 
-def check_magnitudes(X, names):
-    """Refuse design columns with values too large for double-precision moments."""
+def check_magnitudes(X, names, *, peaks=None):
+    """Refuse design columns with values too large for double-precision moments (``peaks``:
+    the largest magnitude per column, when already known)."""
     if not X.size:
         return
-    peaks = _column_peaks(X)
+    peaks = _column_peaks(X) if peaks is None else peaks
     big = peaks > MAX_MAGNITUDE
     if big.any():
         detail = ", ".join(f"{c} (up to {peaks[j]:.3g})" for j, c in enumerate(names) if big[j])

@@ -94,7 +94,8 @@ class Link:
         """``(F, S, f, f'/f)`` at finite ``t`` in one pass (the fitter's hot path).
 
         Subclasses share intermediate results (one ``exp`` for logit) where they can; the
-        default calls the private hooks.
+        default calls the private hooks.  The four arrays are new (none is ``t`` or shares
+        memory with another), so callers may overwrite them.
         """
         return self._cdf(t), self._sf(t), np.exp(self._logpdf(t)), self._dlogpdf(t)
 
@@ -176,12 +177,22 @@ class Logit(Link):
         return special.logit(p)
 
     def kernel(self, t):
-        e = np.exp(-np.abs(t))
-        big = 1.0 / (1.0 + e)
-        small = e * big
+        # one exp; the temporaries are reused in place (each fresh array of a large segment
+        # costs page faults); same arithmetic, so the same bits, as the textbook expressions
+        e = np.abs(t)
+        np.negative(e, out=e)
+        np.exp(e, out=e)  # exp(-|t|)
+        big = np.add(e, 1.0)
+        np.divide(1.0, big, out=big)  # 1 / (1 + e)
+        small = np.multiply(e, big)
         upper = t >= 0
-        return (np.where(upper, big, small), np.where(upper, small, big), small * big,
-                np.copysign((1.0 - e) * big, -t))
+        F, S = np.where(upper, big, small), np.where(upper, small, big)
+        np.multiply(small, big, out=small)  # f = F S
+        np.subtract(1.0, e, out=e)
+        np.multiply(e, big, out=e)
+        np.copysign(e, t, out=e)
+        np.negative(e, out=e)  # f'/f = copysign((1 - e) / (1 + e), -t)
+        return F, S, small, e
 
     def _isf(self, q):
         return -special.logit(q)

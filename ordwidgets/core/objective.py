@@ -52,14 +52,15 @@ def row_terms(link, upper=None, lower=None, *, hessian=True):
     link = get_link(link)
     with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
         logp, ru, du, rl, dl = _ratios(link, upper, lower)
-        out = {"logp": logp, "gu": ru, "gl": None if rl is None else -rl,
+        out = {"logp": logp, "gu": ru, "gl": None if rl is None else np.negative(rl),
                "huu": None, "hll": None, "hul": None}
-        if hessian and ru is not None:
-            out["huu"] = ru * (du - ru)
+        if hessian and ru is not None and rl is not None:
+            out["hul"] = ru * rl
+        if hessian and ru is not None:  # the kernel's f'/f arrays are ours: reused in place
+            out["huu"] = np.multiply(np.subtract(du, ru, out=du), ru, out=du)  # ru (du - ru)
         if hessian and rl is not None:
-            out["hll"] = -rl * (dl + rl)
-            if ru is not None:
-                out["hul"] = ru * rl
+            hll = np.multiply(np.add(dl, rl, out=dl), rl, out=dl)
+            out["hll"] = np.negative(hll, out=hll)  # -rl (dl + rl)
     return out
 
 
@@ -72,9 +73,8 @@ def row_logp(link, upper=None, lower=None):
     link = get_link(link)
     with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
         P, _, _ = _interval_probability(link, upper, lower)
-        logp = np.log(P)
-        bad = _underflowed(P, logp)
-        if bad.any():
+        logp, bad = _log_probability(P)
+        if bad is not None:
             _log_space_rows(link, upper, lower, bad, logp, None, None)
     return logp
 
@@ -87,14 +87,23 @@ def _interval_probability(link, upper, lower):
         P = ku[0]
     elif upper is None:
         P = kl[1]
-    else:
-        P = np.where(lower >= link.median, kl[1] - ku[1], ku[0] - kl[0])
+    else:  # in the kernels' own arrays: P = S(l) - S(u) above the median, else F(u) - F(l)
+        P = np.subtract(ku[0], kl[0], out=ku[0])
+        np.copyto(P, np.subtract(kl[1], ku[1], out=kl[1]), where=lower >= link.median)
     return P, ku, kl
 
 
-def _underflowed(P, logp):
-    """Rows to recompute in log space (probability below ``1e-280`` or not finite)."""
-    return ~(P > 1e-280) | ~np.isfinite(logp)
+def _log_probability(P):
+    """``log P`` and the rows to recompute in log space (``None`` when there is none).
+
+    A row is recomputed when its probability is below ``1e-280`` or not finite; one minimum
+    (which propagates ``nan``) decides whether any row needs looking at.
+    """
+    if P.size and P.min() > 1e-280:
+        return np.log(P), None
+    logp = np.log(P)
+    bad = ~(P > 1e-280) | ~np.isfinite(logp)
+    return logp, (bad if bad.any() else None)
 
 
 def _ratios(link, upper, lower):
@@ -103,13 +112,12 @@ def _ratios(link, upper, lower):
     P, ku, kl = _interval_probability(link, upper, lower)
     if ku is not None:
         du = ku[3]
-        ru = ku[2] / P
+        ru = np.divide(ku[2], P, out=ku[2])
     if kl is not None:
         dl = kl[3]
-        rl = kl[2] / P
-    logp = np.log(P)
-    bad = _underflowed(P, logp)
-    if bad.any():
+        rl = np.divide(kl[2], P, out=kl[2])
+    logp, bad = _log_probability(P)
+    if bad is not None:
         _log_space_rows(link, upper, lower, bad, logp, ru, rl)
         if du is not None:
             du[bad] = link.dlogpdf(upper[bad])

@@ -302,32 +302,35 @@ class _Accumulator:
     def _add_plain(self, k, X, w, t, dests):
         """Parallel model: the threshold parts are plain sums; missing ends cost nothing."""
         g, H, C, b = self.g, self.H, self.C, self.beta
+        # the per-row arrays are this segment's own (row_terms makes them): sums are taken
+        # first, then the arrays are combined in place (no fresh temporaries)
         weigh = (lambda v: v) if w is None else (lambda v: None if v is None else v * w)  # noqa: E731
         gu, gl = weigh(t["gu"]), weigh(t["gl"])
-        gsum = _plus(gu, gl)
         if gu is not None:
             g[k] += gu.sum()
         if gl is not None:
             g[k - 1] += gl.sum()
+        gsum = gl if gu is None else gu if gl is None else np.add(gu, gl, out=gu)
         if H is None:
             if self.p:
                 g[b] -= X.T @ gsum
             return
         huu, hll, hul = weigh(t["huu"]), weigh(t["hll"]), weigh(t["hul"])
-        cu, cl = _plus(huu, hul), _plus(hll, hul)
-        if self.p:
-            g[b] -= X.T @ gsum  # one matrix-vector product each: a product with a few
-            if cu is not None:  # columns waits for BLAS threads on a busy machine
-                C[k, b] -= X.T @ cu
-            if cl is not None:
-                C[k - 1, b] -= X.T @ cl
-            H[b, b] += _weighted_gram(X, _plus(cu, cl) if hul is None else cu + cl)
         if huu is not None:
             H[k, k] += huu.sum()
         if hll is not None:
             H[k - 1, k - 1] += hll.sum()
         if hul is not None:
             C[k, k - 1] += hul.sum()
+            huu, hll = np.add(huu, hul, out=huu), np.add(hll, hul, out=hll)
+        cu, cl = huu, hll  # d2 logP / (du d.) and (dl d.): the weights of x in each cut's row
+        if self.p:
+            g[b] -= X.T @ gsum  # one matrix-vector product each: a product with a few
+            if cu is not None:  # columns waits for BLAS threads on a busy machine
+                C[k, b] -= X.T @ cu
+            if cl is not None:
+                C[k - 1, b] -= X.T @ cl
+            H[b, b] += _weighted_gram(X, _plus(cu, cl) if hul is None else np.add(cu, cl, out=hul))
 
     def _add_extended(self, X, S, wt, gu, gl, t, inv, ends, dests):
         n = len(X)
@@ -398,12 +401,29 @@ class _Accumulator:
             C[b, z] += G[:, 1 + 2 * nq:]
 
 
+#: Rows per block of the weighted Gram product (a block of 10 columns stays in cache).
+GRAM_BLOCK = 8192
+
+
 def _weighted_gram(Xs, c):
     """``Xs' diag(c) Xs``; as ``-(A'A)`` with ``A = Xs sqrt(-c)`` when ``c <= 0`` (log-concave
-    links), which lets BLAS use the symmetric rank-k update at half the cost."""
-    if Xs.shape[1] == 0:
-        return np.zeros((0, 0))
-    if np.all(c <= 0):
-        A = Xs * np.sqrt(-c)[:, None]
-        return -(A.T @ A)
-    return Xs.T @ (Xs * c[:, None])
+    links), which lets BLAS use the symmetric rank-k update at half the cost.
+
+    ``A`` is formed and multiplied a block of rows at a time in one reused buffer, which
+    stays in cache and spares a full-size temporary.
+    """
+    n, p = Xs.shape
+    out = np.zeros((p, p))
+    if p == 0 or n == 0:
+        return out
+    root = np.negative(c)
+    concave = bool(root.min() >= 0)  # False with a nan, as the general product then shows
+    if concave:
+        np.sqrt(root, out=root)
+    buf = np.empty((min(n, GRAM_BLOCK), p), order="F")
+    for s in range(0, n, GRAM_BLOCK):
+        e = min(s + GRAM_BLOCK, n)
+        A = buf[:e - s]
+        np.multiply(Xs[s:e], (root if concave else c)[s:e, None], out=A)
+        out += A.T @ A if concave else Xs[s:e].T @ A
+    return -out if concave else out
