@@ -250,6 +250,10 @@ def _columns(S, parts):
     return out
 
 
+def _identity(v):
+    return v
+
+
 def _nz(v, n):
     return np.zeros(n) if v is None else v
 
@@ -295,9 +299,8 @@ class _Accumulator:
             self._add_plain(k, X, w, t, dests)
             return
         n = len(X)
-        wt = 1.0 if w is None else w
-        gu, gl = _nz(t["gu"], n) * wt, _nz(t["gl"], n) * wt
-        self._add_extended(X, S, wt, gu, gl, t, inv, ends, dests)
+        weigh = (lambda v: _nz(v, n)) if w is None else (lambda v: _nz(v, n) * w)  # noqa: E731
+        self._add_extended(X, S, weigh, t, inv, ends, dests)
 
     def _add_plain(self, k, X, w, t, dests):
         """Parallel model: the threshold parts are plain sums; missing ends cost nothing."""
@@ -332,32 +335,36 @@ class _Accumulator:
                 C[k - 1, b] -= X.T @ cl
             H[b, b] += _weighted_gram(X, _plus(cu, cl) if hul is None else np.add(cu, cl, out=hul))
 
-    def _add_extended(self, X, S, wt, gu, gl, t, inv, ends, dests):
-        n = len(X)
-        vu, vl = (np.zeros(n) if e is None else e for e in ends)
-        one = np.ones(n) if inv is None else inv
-        nq = 1 + self.q
+    def _add_extended(self, X, S, weigh, t, inv, ends, dests):
+        """Non-parallel and scale parts; without a scale (``inv`` is ``None``) the factors
+        ``1 / sigma`` are left out and no scale column is formed."""
+        n, nq, r = len(X), 1 + self.q, self.r
+        gu, gl = weigh(t["gu"]), weigh(t["gl"])
+        sc = _identity if inv is None else (lambda v: v * inv)  # noqa: E731
+        vu, vl = (np.zeros(n) if e is None else e for e in ends) if r else (None, None)
+        first = [(None, sc(gu)), (None, sc(gl))] + ([(None, gu * vu + gl * vl)] if r else [])
         if self.H is None:
-            R = S.T @ _columns(S, [(None, gu * one), (None, gl * one), (None, gu * vu + gl * vl)])
+            R = _thin_product(S, _columns(S, first))
             self._gradient(R, dests, nq)
             if self.p:
-                self.g[self.beta] -= X.T @ ((gu + gl) * one)
+                self.g[self.beta] -= X.T @ sc(gu + gl)
             return
-        huu, hll, hul = (_nz(t[key], n) * wt for key in ("huu", "hll", "hul"))
-        one2 = one * one
-        q, z = slice(0, nq), slice(nq, nq + self.r)
-        cz = huu * vu + hll * vl + hul * (vu + vl) + gu + gl
-        R = S.T @ _columns(S, [(None, gu * one), (None, gl * one), (None, gu * vu + gl * vl),
-                               (q, huu * one2), (q, hll * one2), (q, hul * one2),
-                               (z, (huu * vu + hul * vl + gu) * one), (z, (hll * vl + hul * vu + gl) * one),
-                               (z, huu * vu * vu + hll * vl * vl + 2.0 * hul * vu * vl + gu * vu + gl * vl)])
+        huu, hll, hul = (weigh(t[key]) for key in ("huu", "hll", "hul"))
+        inv2 = None if inv is None else inv * inv
+        sc2 = _identity if inv2 is None else (lambda v: v * inv2)  # noqa: E731
+        q, z = slice(0, nq), slice(nq, nq + r)
+        scale = [] if not r else [
+            (z, sc(huu * vu + hul * vl + gu)), (z, sc(hll * vl + hul * vu + gl)),
+            (z, huu * vu * vu + hll * vl * vl + 2.0 * hul * vu * vl + gu * vu + gl * vl)]
+        R = _thin_product(S, _columns(S, first + [(q, sc2(huu)), (q, sc2(hll)), (q, sc2(hul))] + scale))
         self._gradient(R, dests, nq)
-        self._small_blocks(R, dests, nq)
+        self._small_blocks(R, dests, nq, len(first))
         if self.p:
-            G = X.T @ _columns(S, [(None, (gu + gl) * one), (q, (huu + hul) * one2), (q, (hll + hul) * one2),
-                                   (z, cz * one)])
+            cz = [] if not r else [(z, sc(huu * vu + hll * vl + hul * (vu + vl) + gu + gl))]
+            G = _thin_product(X, _columns(S, [(None, sc(gu + gl)), (q, sc2(huu + hul)),
+                                              (q, sc2(hll + hul))] + cz))
             self._effect_blocks(G, dests, nq)
-            self.H[self.beta, self.beta] += _weighted_gram(X, (huu + hll + 2.0 * hul) * one2)
+            self.H[self.beta, self.beta] += _weighted_gram(X, sc2(huu + hll + 2.0 * hul))
 
     def _gradient(self, R, dests, nq):
         g, z = self.g, self.zeta
@@ -367,12 +374,12 @@ class _Accumulator:
         if self.r:
             g[z] -= R[nq:, 2]
 
-    def _small_blocks(self, R, dests, nq):
-        """Threshold / per-threshold / scale blocks from ``R = [1, W, Z]' T``."""
+    def _small_blocks(self, R, dests, nq, col):
+        """Threshold / per-threshold / scale blocks from ``R = [1, W, Z]' T`` (their columns
+        of ``T`` start at ``col``)."""
         H, C, z, s = self.H, self.C, self.zeta, self.sign
         du, dl = dests
         ss = np.outer(s, s)
-        col = 3
         quu, qll, qul = (R[:nq, col + i * nq: col + (i + 1) * nq] for i in range(3))
         col += 3 * nq
         r = self.r
@@ -399,6 +406,27 @@ class _Accumulator:
                 C[dest[:, None], bi[None, :]] -= self.sign[:, None] * G[:, 1 + i * nq:1 + (i + 1) * nq].T
         if self.r:
             C[b, z] += G[:, 1 + 2 * nq:]
+
+
+#: Rows per block of a product ``A' B`` with a thin ``B``.
+THIN_BLOCK = 4096
+
+
+def _thin_product(A, B):
+    """``A' B`` for a ``B`` of a few columns, a block of rows at a time.
+
+    Products this small gain nothing from BLAS threads, and on a busy machine a threaded
+    call waits for a thread that is not running (medians ten times the minimum were seen);
+    blocks of a few thousand rows stay below the size at which BLAS starts threads, and in
+    cache.
+    """
+    n = len(A)
+    if n <= THIN_BLOCK:
+        return A.T @ B
+    out = A[:THIN_BLOCK].T @ B[:THIN_BLOCK]
+    for s in range(THIN_BLOCK, n, THIN_BLOCK):
+        out += A[s:s + THIN_BLOCK].T @ B[s:s + THIN_BLOCK]
+    return out
 
 
 #: Rows per block of the weighted Gram product (a block of 10 columns stays in cache).
