@@ -32,29 +32,41 @@ per group); it is what Newton steps use.  For the covariance of the estimates us
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 from numpy.polynomial.hermite_e import hermegauss
-from scipy import sparse
 from scipy.special import logsumexp
 
 from .links import get_link
-from .objective import row_terms, sort_by_category
+from .grouped_sums import group_matrix, moment_hessian, node_scores, outer_term, parameter_sums, threshold_matrices
+from .objective import row_logp, row_terms, sort_by_category
 
 __all__ = ["GroupedRows", "MarginalSums", "marginal_sums", "find_modes", "log_density_curvature",
            "differenced_hessian", "quadrature_rule", "DEFAULT_POINTS", "default_points", "shift_terms",
-           "shift_derivatives", "parameter_sums", "sorted_codes", "sorted_counts"]
+           "shift_derivatives", "parameter_sums", "sorted_codes", "sorted_counts", "choose_points",
+           "PointsChoice"]
 
-#: Default number of quadrature points: enough for the log-likelihood to match a 50-point
-#: integral to 1e-4 on the tests' data (groups of about 15 rows, SD 1.1); the cauchit's heavy
-#: tails make the conditional densities less normal and need :data:`CAUCHIT_POINTS`.
+#: Points of a fixed rule (:func:`default_points`) for callers that want one without looking
+#: at the data: enough for the log-likelihood to match a 50-point integral to 1e-4 on the
+#: tests' data (groups of about 15 rows, SD 1.1); the cauchit's heavy tails make the
+#: conditional densities less normal and need :data:`CAUCHIT_POINTS`.  Fits choose their
+#: default per data set instead (:func:`choose_points`).
 DEFAULT_POINTS = 9
 CAUCHIT_POINTS = 17
 
+#: :func:`choose_points`: the reference rule, the tolerance on the log-likelihood, the
+#: candidates tried in turn and the number of groups looked at.
+REFERENCE_POINTS = 50
+POINTS_TOL = 1e-4
+CANDIDATE_POINTS = tuple(range(3, 50, 2))
+SAMPLED_GROUPS = 120
+
 
 def default_points(link):
-    """Default quadrature points for ``link`` (see :data:`DEFAULT_POINTS`)."""
+    """Fixed default quadrature points for ``link`` (see :data:`DEFAULT_POINTS`)."""
     return CAUCHIT_POINTS if get_link(link).name == "cauchit" else DEFAULT_POINTS
+
 
 _LOG_SQRT_2PI = 0.5 * np.log(2.0 * np.pi)
 _MODE_TOL = 1e-10
@@ -146,7 +158,7 @@ class GroupedRows:
         """Thresholds, effects and the one SD."""
         return self.n_levels - 1 + self.X.shape[1] + 1
 
-    @property
+    @cached_property
     def codes(self):
         """Category code of each sorted row."""
         return sorted_codes(self.bounds)
@@ -155,14 +167,34 @@ class GroupedRows:
         """Weighted number of rows in each category."""
         return sorted_counts(self.bounds, self.weights)
 
+    @cached_property
+    def group_matrix(self):
+        """Sparse (n_groups, n) matrix of the rows' weights in their groups."""
+        return group_matrix(self)
+
+    @cached_property
+    def threshold_matrices(self):
+        """Sparse matrices adding rows into (group, threshold) cells (see grouped_sums)."""
+        return threshold_matrices(self)
+
     def group_total(self, values):
-        """Weighted sum of per-row ``values`` within each group."""
-        v = values if self.weights is None else self.weights * values
-        return np.bincount(self.groups, weights=v, minlength=self.n_groups)
+        """Weighted sum of per-row ``values`` (shape (n,) or (n, k)) within each group."""
+        return self.group_matrix @ values
 
     def rows_per_group(self):
         """Number of (sorted) rows in each group."""
         return np.bincount(self.groups, minlength=self.n_groups)
+
+    def subset(self, group_ids):
+        """The rows of the groups ``group_ids`` (recoded ``0..len(group_ids)-1``), still
+        sorted by category."""
+        recode = np.full(self.n_groups, -1, np.intp)
+        recode[np.asarray(group_ids, np.intp)] = np.arange(len(group_ids))
+        keep = recode[self.groups] >= 0
+        counts = np.bincount(self.codes[keep], minlength=self.n_levels)
+        bounds = np.concatenate([[0], np.cumsum(counts)])
+        w = None if self.weights is None else self.weights[keep]
+        return GroupedRows(self.X[keep], bounds, recode[self.groups[keep]], len(group_ids), w)
 
 
 @dataclass(frozen=True, eq=False)
@@ -187,14 +219,16 @@ def shift_terms(link, rows, theta, shift, *, order=2, third=False):
     """Per-row ``log P`` and derivatives in the interval ends, zeros for a missing end.
 
     Row ``i`` in category ``k`` has ``upper = theta_k - shift_i`` and ``lower =
-    theta_{k-1} - shift_i``.  Returns a dict of arrays in the sorted row order: ``lp``,
-    ``u``, ``l`` (first), ``uu``, ``ul``, ``ll`` (second) and, with ``third``, ``uuu``,
-    ``uul``, ``ull``, ``lll``.
+    theta_{k-1} - shift_i``; ``shift`` has shape (n,) or (n, Q) (one column per quadrature
+    node).  Returns a dict of arrays of the shape of ``shift`` in the sorted row order:
+    ``lp`` and, with ``order >= 1``, ``u``, ``l`` (first), with ``order >= 2`` ``uu``,
+    ``ul``, ``ll`` (second) and, with ``third``, ``uuu``, ``uul``, ``ull``, ``lll``.
     """
     m = rows.n_levels - 1
-    keys = ["lp", "u", "l"] + (["uu", "ul", "ll"] if order >= 2 or third else []) + (
+    second = order >= 2 or third
+    keys = ["lp"] + (["u", "l"] if order >= 1 or third else []) + (["uu", "ul", "ll"] if second else []) + (
         ["uuu", "uul", "ull", "lll"] if third else [])
-    out = {k: np.zeros(len(shift)) for k in keys}
+    out = {k: np.zeros(shift.shape) for k in keys}
     b = rows.bounds
     for k in range(rows.n_levels):
         s, e = int(b[k]), int(b[k + 1])
@@ -202,12 +236,14 @@ def shift_terms(link, rows, theta, shift, *, order=2, third=False):
             continue
         up = theta[k] - shift[s:e] if k < m else None
         lo = theta[k - 1] - shift[s:e] if k > 0 else None
-        t = row_terms(link, upper=up, lower=lo, hessian=order >= 2 or third)
+        if len(keys) == 1:
+            out["lp"][s:e] = row_logp(link, upper=up, lower=lo)
+            continue
+        t = row_terms(link, upper=up, lower=lo, hessian=second)
         out["lp"][s:e] = t["logp"]
-        for key, src, sign in (("u", "gu", 1.0), ("l", "gl", 1.0), ("uu", "huu", 1.0), ("ll", "hll", 1.0),
-                               ("ul", "hul", 1.0)):
+        for key, src in (("u", "gu"), ("l", "gl"), ("uu", "huu"), ("ll", "hll"), ("ul", "hul")):
             if key in out and t[src] is not None:
-                out[key][s:e] = sign * t[src]
+                out[key][s:e] = t[src]
         if third:
             _third_terms(link, out, s, e, up, lo, t)
     return out
@@ -282,20 +318,6 @@ def _mode_terms(rows, link, theta, eta, sigma, z):
     return h, sigma * rows.group_total(s1) - z, 1.0 - sigma * sigma * rows.group_total(s2)
 
 
-def parameter_sums(rows, cu, cl, cs, csig):
-    """``sum_i`` of per-row derivative pieces mapped onto ``[theta, beta, sigma]``.
-
-    ``cu`` multiplies ``d upper/d theta`` (the row's own threshold), ``cl`` ``d lower/d
-    theta`` (the one below), ``cs`` the row's ``x`` and ``csig`` goes to ``sigma``.
-    """
-    m = rows.n_levels - 1
-    y = rows.codes
-    up, lo = y < m, y > 0
-    g_theta = np.bincount(y[up], weights=cu[up], minlength=m)[:m] + np.bincount(y[lo] - 1, weights=cl[lo],
-                                                                                 minlength=m)[:m]
-    return np.concatenate([g_theta, rows.X.T @ cs, [csig.sum()]])
-
-
 def _weighted(rows, v):
     return v if rows.weights is None else rows.weights * v
 
@@ -304,13 +326,17 @@ def marginal_sums(rows, link, params, *, points=None, order=2, start_modes=None,
                   group_scores=False):
     """Adaptive Gauss-Hermite log-likelihood (and derivatives) at ``[theta, beta, sigma]``.
 
+    All quadrature nodes are evaluated in one pass over the rows (arrays of shape
+    ``(n, points)``), and the sums per group are sparse products.
+
     Parameters
     ----------
     rows : GroupedRows
     link : Link or str
     params : ndarray, shape (J - 1 + p + 1,)
     points : int, optional
-        Quadrature points per group (1 = Laplace; default :func:`default_points`).
+        Quadrature points per group (1 = Laplace); default: :func:`choose_points` at
+        ``params`` (the fewest that match a 50-point integral to 1e-4).
     order : {0, 1, 2}
         0: log-likelihood only; 1: with the exact gradient; 2: also the fixed-node Hessian.
     start_modes : ndarray, optional
@@ -326,49 +352,49 @@ def marginal_sums(rows, link, params, *, points=None, order=2, start_modes=None,
     m, p = rows.n_levels - 1, rows.X.shape[1]
     theta, beta, sigma = params[:m], params[m:m + p], float(params[m + p])
     eta = rows.X @ beta if p else np.zeros(len(rows.groups))
+    if points is None:
+        points = choose_points(rows, link, params).points
     z, c = find_modes(rows, link, theta, eta, sigma, start=start_modes)
-    t, logw = quadrature_rule(default_points(link) if points is None else points)
+    t, logw = quadrature_rule(points)
     nodes = z[:, None] + t[None, :] / np.sqrt(c)[:, None]
-    terms, ll_gk = [], np.empty_like(nodes)
-    for k in range(len(t)):
-        T = shift_terms(link, rows, theta, eta + sigma * nodes[rows.groups, k], order=order)
-        ll_gk[:, k] = rows.group_total(T["lp"]) - 0.5 * nodes[:, k] ** 2 + logw[k]
-        terms.append(T)
+    need = max(order, 2 if group_scores else 0)
+    T = shift_terms(link, rows, theta, eta[:, None] + sigma * nodes[rows.groups], order=need)
+    ll_gk = rows.group_total(T["lp"]) - 0.5 * nodes ** 2 + logw
     lse = logsumexp(ll_gk, axis=1)
     group_ll = lse - 0.5 * np.log(c)
-    if order == 0 and not group_scores:
+    if need == 0:
         return MarginalSums(float(group_ll.sum()), None, None, z, c, group_ll)
     pi = np.exp(ll_gk - lse[:, None])
-    grad = _fixed_gradient(rows, terms, pi, nodes) + _node_correction(
-        rows, link, theta, eta, sigma, z, c, t, terms, pi, nodes)
-    hess = _fixed_hessian(rows, terms, pi, nodes, sigma) if order >= 2 else None
-    scores = _group_node_scores(rows, terms, nodes) if (order >= 2 or group_scores) else None
-    if hess is not None:
-        hess = hess + _outer_term(pi, scores)
+    s1 = -(T["u"] + T["l"])
+    s1_groups = rows.group_total(s1)
+    v = pi[rows.groups] if rows.weights is None else rows.weights[:, None] * pi[rows.groups]
+    zr = nodes[rows.groups]
+    grad = parameter_sums(rows, np.sum(v * T["u"], 1), np.sum(v * T["l"], 1), np.sum(v * s1, 1),
+                          np.sum(v * s1 * zr, 1))
+    grad = grad + _node_correction(rows, link, theta, eta, sigma, z, c, t, pi, nodes, s1_groups)
+    scores = node_scores(rows, rows.group_matrix, rows.threshold_matrices, T, nodes, s1_groups)
+    hess = moment_hessian(rows, _node_moments(T, v, zr)) + outer_term(pi, scores) if order >= 2 else None
     gs = np.einsum("gk,gka->ga", pi, scores) if group_scores else None
     return MarginalSums(float(group_ll.sum()), grad if order >= 1 else None, hess, z, c, group_ll, gs)
 
 
-def _fixed_gradient(rows, terms, pi, nodes):
-    g = rows.groups
-    n = len(g)
-    cu, cl, cs, csig = (np.zeros(n) for _ in range(4))
-    for k, T in enumerate(terms):
-        v = _weighted(rows, pi[g, k])
-        s1 = -(T["u"] + T["l"])
-        cu += v * T["u"]
-        cl += v * T["l"]
-        cs += v * s1
-        csig += v * s1 * nodes[g, k]
-    return parameter_sums(rows, cu, cl, cs, csig)
+def _node_moments(T, v, zr):
+    """Per-row sums over nodes of the second-derivative pieces :func:`moment_hessian` needs."""
+    su, sl = T["uu"] + T["ul"], T["ul"] + T["ll"]
+    ss = su + sl
+    vz = v * zr
+    return {"uu": np.sum(v * T["uu"], 1), "ll": np.sum(v * T["ll"], 1), "ul": np.sum(v * T["ul"], 1),
+            "tu0": np.sum(v * su, 1), "tl0": np.sum(v * sl, 1), "tu1": np.sum(vz * su, 1),
+            "tl1": np.sum(vz * sl, 1), "s0": np.sum(v * ss, 1), "s1": np.sum(vz * ss, 1),
+            "s2": np.sum(vz * zr * ss, 1)}
 
 
-def _node_correction(rows, link, theta, eta, sigma, z, c, t, terms, pi, nodes):
+def _node_correction(rows, link, theta, eta, sigma, z, c, t, pi, nodes, s1_groups):
     """Gradient terms from the mode and curvature moving with the parameters."""
     if sigma == 0.0:
         return np.zeros(rows.n_params)  # h_zpsi and h_zzpsi carry a factor sigma
     g = rows.groups
-    hz = np.stack([sigma * rows.group_total(-(T["u"] + T["l"])) - nodes[:, k] for k, T in enumerate(terms)], 1)
+    hz = sigma * s1_groups - nodes
     A = np.sum(pi * hz, axis=1)
     B = -0.5 / c - 0.5 * c ** -1.5 * np.sum(pi * t[None, :] * hz, axis=1)
     T0 = shift_terms(link, rows, theta, eta + sigma * z[g], order=2, third=True)
@@ -385,80 +411,63 @@ def _node_correction(rows, link, theta, eta, sigma, z, c, t, terms, pi, nodes):
     return parameter_sums(rows, cu, cl, cs, csig)
 
 
-def _fixed_hessian(rows, terms, pi, nodes, sigma):
-    """``sum_k pi_k H_k`` over groups, with the node moments aggregated per row."""
-    g, y, X = rows.groups, rows.codes, rows.X
-    m, p = rows.n_levels - 1, X.shape[1]
-    n = len(g)
-    acc = {key: np.zeros(n) for key in ("uu", "ll", "ul", "tu0", "tl0", "tu1", "tl1", "s0", "s1", "s2")}
-    for k, T in enumerate(terms):
-        v = _weighted(rows, pi[g, k])
-        zk = nodes[g, k]
-        su, sl = T["uu"] + T["ul"], T["ul"] + T["ll"]
-        ss = su + sl
-        acc["uu"] += v * T["uu"]
-        acc["ll"] += v * T["ll"]
-        acc["ul"] += v * T["ul"]
-        acc["tu0"] += v * su
-        acc["tl0"] += v * sl
-        acc["tu1"] += v * su * zk
-        acc["tl1"] += v * sl * zk
-        acc["s0"] += v * ss
-        acc["s1"] += v * ss * zk
-        acc["s2"] += v * ss * zk * zk
-    P = m + p + 1
-    H = np.zeros((P, P))
-    up, lo = y < m, y > 0
-    both = up & lo
-    H[:m, :m] += np.diag(np.bincount(y[up], acc["uu"][up], minlength=m)[:m]
-                         + np.bincount(y[lo] - 1, acc["ll"][lo], minlength=m)[:m])
-    off = np.bincount(y[both] - 1, acc["ul"][both], minlength=m)[:m]  # between theta_{k-1} and theta_k
-    idx = np.arange(m - 1)
-    H[idx, idx + 1] += off[: m - 1]
-    H[idx + 1, idx] += off[: m - 1]
-    for key_u, key_l, col, span in (("tu0", "tl0", X, slice(m, m + p)), ("tu1", "tl1", np.ones((n, 1)), slice(m + p, P))):
-        block = _theta_block(y, m, up, lo, acc[key_u], acc[key_l], col)
-        H[:m, span] -= block
-        H[span, :m] -= block.T
-    H[m:m + p, m:m + p] += X.T @ (X * acc["s0"][:, None])
-    H[m:m + p, -1] += X.T @ acc["s1"]
-    H[-1, m:m + p] += X.T @ acc["s1"]
-    H[-1, -1] += acc["s2"].sum()
-    return H
+@dataclass(frozen=True)
+class PointsChoice:
+    """Outcome of :func:`choose_points`.
+
+    ``points`` chosen; ``error`` the estimated ``|loglik(points) - loglik(reference)|``
+    summed over all groups; ``sampled`` the number of groups the estimate is based on.
+    """
+
+    points: int
+    error: float
+    sampled: int
 
 
-def _theta_block(y, m, up, lo, cu, cl, cols):
-    """``sum_i cu_i 1{y_i = j} cols_i + cl_i 1{y_i - 1 = j} cols_i`` as an (m, k) array."""
-    out = np.empty((m, cols.shape[1]))
-    for j in range(cols.shape[1]):
-        out[:, j] = (np.bincount(y[up], cu[up] * cols[up, j], minlength=m)[:m]
-                     + np.bincount(y[lo] - 1, cl[lo] * cols[lo, j], minlength=m)[:m])
-    return out
+def _sampled_groups(rows, size):
+    """The groups the choice of points looks at, and the weight of each in the total.
+
+    All groups when there are at most ``size``; otherwise the ``size // 2`` groups with the
+    fewest (weighted) rows, whose conditional densities are the least normal and whose
+    quadrature errors the largest, each counted once, and a seeded random sample of the
+    others standing for all of them (a stratified estimate of the total).
+    """
+    G = rows.n_groups
+    if G <= size:
+        return np.arange(G), np.ones(G)
+    small = np.argsort(rows.group_total(np.ones(len(rows.groups))), kind="stable")[: size // 2]
+    rest = np.setdiff1d(np.arange(G), small)
+    drawn = np.sort(np.random.default_rng(0).choice(rest, size - len(small), replace=False))
+    return np.concatenate([small, drawn]), np.concatenate([np.ones(len(small)),
+                                                          np.full(len(drawn), len(rest) / len(drawn))])
 
 
-def _group_node_scores(rows, terms, nodes):
-    """Score vector of each group at each node, shape (n_groups, n_nodes, n_params)."""
-    g, y, X = rows.groups, rows.codes, rows.X
-    m, p = rows.n_levels - 1, X.shape[1]
-    n = len(g)
-    w = np.ones(n) if rows.weights is None else rows.weights
-    Z = sparse.csr_matrix((w, (g, np.arange(n))), shape=(rows.n_groups, n))
-    up, lo = y < m, y > 0
-    out = np.empty((rows.n_groups, len(terms), m + p + 1))
-    for k, T in enumerate(terms):
-        R = np.zeros((n, m + p + 1))
-        R[np.flatnonzero(up), y[up]] = T["u"][up]
-        R[np.flatnonzero(lo), y[lo] - 1] += T["l"][lo]
-        s1 = -(T["u"] + T["l"])
-        R[:, m:m + p] = s1[:, None] * X
-        R[:, -1] = s1 * nodes[g, k]
-        out[:, k, :] = Z @ R
-    return out
+def choose_points(rows, link, params, *, tol=POINTS_TOL, reference=REFERENCE_POINTS,
+                  candidates=CANDIDATE_POINTS, sample=SAMPLED_GROUPS):
+    """The fewest quadrature points whose log-likelihood matches a ``reference``-point rule.
 
+    The candidates (3, 5, 7, ... points: odd rules keep a node at each mode) are tried in
+    turn on the groups of :func:`_sampled_groups` at ``params``; the first whose estimated
+    total error ``sum_g |l_g(points) - l_g(reference)|`` (groups weighted as sampled) is at
+    most ``tol`` is returned, else the reference itself.  Adaptive Gauss-Hermite errors fall
+    quickly as points are added (Pinheiro & Bates 1995), so the reference stands for the
+    integral.
 
-def _outer_term(pi, scores):
-    mean = np.einsum("gk,gka->ga", pi, scores)
-    return np.einsum("gk,gka,gkb->ab", pi, scores, scores) - mean.T @ mean
+    Returns
+    -------
+    PointsChoice
+    """
+    ids, weight = _sampled_groups(rows, sample)
+    sub = rows if len(ids) == rows.n_groups else rows.subset(ids)
+    ref = marginal_sums(sub, link, params, points=reference, order=0)
+    for Q in candidates:
+        if Q >= reference:
+            break
+        out = marginal_sums(sub, link, params, points=Q, order=0, start_modes=ref.modes)
+        err = float(np.sum(weight * np.abs(out.group_loglik - ref.group_loglik)))
+        if err <= tol:
+            return PointsChoice(int(Q), err, len(ids))
+    return PointsChoice(int(reference), 0.0, len(ids))
 
 
 def differenced_hessian(gradient, params, *, rel_step=1e-5):
