@@ -39,13 +39,13 @@ from numpy.polynomial.hermite_e import hermegauss
 from scipy.special import logsumexp
 
 from .links import get_link
-from .grouped_sums import group_matrix, moment_hessian, node_scores, outer_term, parameter_sums, threshold_matrices
+from .grouped_sums import group_matrix, moment_hessian, node_scores, outer_term, parameter_sums, score_matrices
 from .objective import row_logp, row_terms, sort_by_category
 
 __all__ = ["GroupedRows", "MarginalSums", "marginal_sums", "find_modes", "log_density_curvature",
            "differenced_hessian", "quadrature_rule", "DEFAULT_POINTS", "default_points", "shift_terms",
            "shift_derivatives", "parameter_sums", "sorted_codes", "sorted_counts", "choose_points",
-           "PointsChoice"]
+           "PointsChoice", "sd_start", "attenuation"]
 
 #: Points of a fixed rule (:func:`default_points`) for callers that want one without looking
 #: at the data: enough for the log-likelihood to match a 50-point integral to 1e-4 on the
@@ -173,9 +173,9 @@ class GroupedRows:
         return group_matrix(self)
 
     @cached_property
-    def threshold_matrices(self):
-        """Sparse matrices adding rows into (group, threshold) cells (see grouped_sums)."""
-        return threshold_matrices(self)
+    def score_matrices(self):
+        """Sparse matrices adding rows into each group's score (see grouped_sums)."""
+        return score_matrices(self)
 
     def group_total(self, values):
         """Weighted sum of per-row ``values`` (shape (n,) or (n, k)) within each group."""
@@ -358,7 +358,7 @@ def marginal_sums(rows, link, params, *, points=None, order=2, start_modes=None,
     t, logw = quadrature_rule(points)
     nodes = z[:, None] + t[None, :] / np.sqrt(c)[:, None]
     need = max(order, 2 if group_scores else 0)
-    T = shift_terms(link, rows, theta, eta[:, None] + sigma * nodes[rows.groups], order=need)
+    T = shift_terms(link, rows, theta, eta[:, None] + sigma * np.take(nodes, rows.groups, axis=0), order=need)
     ll_gk = rows.group_total(T["lp"]) - 0.5 * nodes ** 2 + logw
     lse = logsumexp(ll_gk, axis=1)
     group_ll = lse - 0.5 * np.log(c)
@@ -367,15 +367,21 @@ def marginal_sums(rows, link, params, *, points=None, order=2, start_modes=None,
     pi = np.exp(ll_gk - lse[:, None])
     s1 = -(T["u"] + T["l"])
     s1_groups = rows.group_total(s1)
-    v = pi[rows.groups] if rows.weights is None else rows.weights[:, None] * pi[rows.groups]
-    zr = nodes[rows.groups]
-    grad = parameter_sums(rows, np.sum(v * T["u"], 1), np.sum(v * T["l"], 1), np.sum(v * s1, 1),
-                          np.sum(v * s1 * zr, 1))
+    v = np.take(pi, rows.groups, axis=0)
+    if rows.weights is not None:
+        v *= rows.weights[:, None]
+    zr = np.take(nodes, rows.groups, axis=0)
+    grad = parameter_sums(rows, _rowdot(v, T["u"]), _rowdot(v, T["l"]), _rowdot(v, s1), _rowdot(v * zr, s1))
     grad = grad + _node_correction(rows, link, theta, eta, sigma, z, c, t, pi, nodes, s1_groups)
-    scores = node_scores(rows, rows.group_matrix, rows.threshold_matrices, T, nodes, s1_groups)
+    scores = node_scores(rows, rows.score_matrices, T, nodes, s1_groups)
     hess = moment_hessian(rows, _node_moments(T, v, zr)) + outer_term(pi, scores) if order >= 2 else None
     gs = np.einsum("gk,gka->ga", pi, scores) if group_scores else None
     return MarginalSums(float(group_ll.sum()), grad if order >= 1 else None, hess, z, c, group_ll, gs)
+
+
+def _rowdot(a, b):
+    """``sum_k a_ik b_ik`` for every row ``i``."""
+    return np.einsum("ik,ik->i", a, b)
 
 
 def _node_moments(T, v, zr):
@@ -383,10 +389,10 @@ def _node_moments(T, v, zr):
     su, sl = T["uu"] + T["ul"], T["ul"] + T["ll"]
     ss = su + sl
     vz = v * zr
-    return {"uu": np.sum(v * T["uu"], 1), "ll": np.sum(v * T["ll"], 1), "ul": np.sum(v * T["ul"], 1),
-            "tu0": np.sum(v * su, 1), "tl0": np.sum(v * sl, 1), "tu1": np.sum(vz * su, 1),
-            "tl1": np.sum(vz * sl, 1), "s0": np.sum(v * ss, 1), "s1": np.sum(vz * ss, 1),
-            "s2": np.sum(vz * zr * ss, 1)}
+    vzz = vz * zr
+    return {"uu": _rowdot(v, T["uu"]), "ll": _rowdot(v, T["ll"]), "ul": _rowdot(v, T["ul"]),
+            "tu0": _rowdot(v, su), "tl0": _rowdot(v, sl), "tu1": _rowdot(vz, su), "tl1": _rowdot(vz, sl),
+            "s0": _rowdot(v, ss), "s1": _rowdot(vz, ss), "s2": _rowdot(vzz, ss)}
 
 
 def _node_correction(rows, link, theta, eta, sigma, z, c, t, pi, nodes, s1_groups):
@@ -409,6 +415,42 @@ def _node_correction(rows, link, theta, eta, sigma, z, c, t, pi, nodes, s1_group
     cs = r * sigma * s2 + q * s2_ * s3
     csig = r * (s1 + sigma * zr * s2) + q * (2 * sigma * s2 + s2_ * zr * s3)
     return parameter_sums(rows, cu, cl, cs, csig)
+
+
+def sd_start(rows, link, plain_params, *, floor=0.2):
+    """A start value of the SD from the plain model's optimum ``[theta, beta]``.
+
+    Each group's one-step estimate of its effect is ``d_g = S_g / I_g`` with ``S_g`` and
+    ``I_g`` the group's score and information in a common shift at the plain fit; with
+    ``var(d_g) ~ sigma^2 + 1 / I_g`` the moment estimate is
+    ``sigma^2 = mean(d_g^2 - 1 / I_g)`` (a method-of-moments start, common practice, no
+    source), at least ``floor`` (``sigma = 0`` is a stationary point to stay away from).
+    """
+    m = rows.n_levels - 1
+    theta, beta = plain_params[:m], plain_params[m:]
+    eta = rows.X @ beta if len(beta) else np.zeros(len(rows.groups))
+    s1, s2, _ = shift_derivatives(shift_terms(get_link(link), rows, theta, eta, order=2))
+    score, info = rows.group_total(s1), -rows.group_total(s2)
+    ok = info > 0
+    if not ok.any():
+        return floor
+    est = float(np.mean((score[ok] / info[ok]) ** 2 - 1.0 / info[ok]))
+    return max(np.sqrt(est) if est > 0 else 0.0, floor)
+
+
+def attenuation(link, sigma):
+    """Approximate ratio of conditional to population-averaged effects at SD ``sigma``.
+
+    ``sqrt(1 + sigma^2)`` for the probit (exact: a normal intercept added to a normal latent
+    error); ``sqrt(1 + (16 sqrt(3) / (15 pi))^2 sigma^2)`` for the logit (Zeger, Liang &
+    Albert 1988, Biometrics 44:1049-1060); ``sqrt(1 + sigma^2 / v)`` with the latent variance
+    ``v = pi^2 / 6`` for the Gumbel links and ``v = 1`` for the cauchit (which has none:
+    common practice, no source).  Used for start values only.
+    """
+    name = get_link(link).name
+    inv_var = {"probit": 1.0, "logit": (16.0 * np.sqrt(3.0) / (15.0 * np.pi)) ** 2,
+               "cloglog": 6.0 / np.pi ** 2, "loglog": 6.0 / np.pi ** 2}.get(name, 1.0)
+    return float(np.sqrt(1.0 + inv_var * sigma * sigma))
 
 
 @dataclass(frozen=True)

@@ -14,8 +14,23 @@ from __future__ import annotations
 import numpy as np
 from scipy import sparse
 
-__all__ = ["parameter_sums", "moment_hessian", "group_matrix", "threshold_matrices", "node_scores",
+__all__ = ["parameter_sums", "moment_hessian", "group_matrix", "score_matrices", "node_scores",
            "outer_term"]
+
+
+def _segments(rows):
+    """Row slices of the categories (rows are sorted by category)."""
+    b = rows.bounds
+    return [slice(int(b[k]), int(b[k + 1])) for k in range(len(b) - 1)]
+
+
+def _threshold_sums(seg, cu, cl, cols=None):
+    """``sum_i cu_i [y_i = j] c_i + cl_i [y_i - 1 = j] c_i`` for each threshold ``j``
+    (``c_i = 1`` without ``cols``, else the row of ``cols``): shape (m,) or (m, k)."""
+    m = len(seg) - 1
+    if cols is None:
+        return np.array([cu[seg[j]].sum() + cl[seg[j + 1]].sum() for j in range(m)])
+    return np.array([cu[seg[j]] @ cols[seg[j]] + cl[seg[j + 1]] @ cols[seg[j + 1]] for j in range(m)])
 
 
 def parameter_sums(rows, cu, cl, cs, csig):
@@ -24,12 +39,7 @@ def parameter_sums(rows, cu, cl, cs, csig):
     ``cu`` multiplies ``d upper/d theta`` (the row's own threshold), ``cl`` ``d lower/d
     theta`` (the one below), ``cs`` the row's ``x`` and ``csig`` goes to ``sigma``.
     """
-    m = rows.n_levels - 1
-    y = rows.codes
-    up, lo = y < m, y > 0
-    g_theta = np.bincount(y[up], weights=cu[up], minlength=m)[:m] + np.bincount(y[lo] - 1, weights=cl[lo],
-                                                                                 minlength=m)[:m]
-    return np.concatenate([g_theta, rows.X.T @ cs, [csig.sum()]])
+    return np.concatenate([_threshold_sums(_segments(rows), cu, cl), rows.X.T @ cs, [csig.sum()]])
 
 
 def moment_hessian(rows, acc):
@@ -39,24 +49,19 @@ def moment_hessian(rows, acc):
     ``tu0``/``tl0`` of ``uu + ul`` / ``ul + ll`` and ``tu1``/``tl1`` the same times the node;
     ``s0``, ``s1``, ``s2`` of ``uu + 2 ul + ll`` times the node's power 0, 1, 2.
     """
-    y, X = rows.codes, rows.X
+    X, seg = rows.X, _segments(rows)
     m, p = rows.n_levels - 1, X.shape[1]
-    n = len(y)
     P = m + p + 1
     H = np.zeros((P, P))
-    up, lo = y < m, y > 0
-    both = up & lo
-    H[:m, :m] += np.diag(np.bincount(y[up], acc["uu"][up], minlength=m)[:m]
-                         + np.bincount(y[lo] - 1, acc["ll"][lo], minlength=m)[:m])
-    off = np.bincount(y[both] - 1, acc["ul"][both], minlength=m)[:m]  # between theta_{k-1} and theta_k
+    H[:m, :m] = np.diag(_threshold_sums(seg, acc["uu"], acc["ll"]))
+    off = np.array([acc["ul"][seg[k]].sum() for k in range(1, m)])  # rows of category k: theta_{k-1}, theta_k
     idx = np.arange(m - 1)
-    H[idx, idx + 1] += off[: m - 1]
-    H[idx + 1, idx] += off[: m - 1]
-    for key_u, key_l, col, span in (("tu0", "tl0", X, slice(m, m + p)),
-                                    ("tu1", "tl1", np.ones((n, 1)), slice(m + p, P))):
-        block = _theta_block(y, m, up, lo, acc[key_u], acc[key_l], col)
-        H[:m, span] -= block
-        H[span, :m] -= block.T
+    H[idx, idx + 1] += off
+    H[idx + 1, idx] += off
+    blocks = np.column_stack([_threshold_sums(seg, acc["tu0"], acc["tl0"], X).reshape(m, p),
+                              _threshold_sums(seg, acc["tu1"], acc["tl1"])])
+    H[:m, m:] -= blocks
+    H[m:, :m] -= blocks.T
     H[m:m + p, m:m + p] += X.T @ (X * acc["s0"][:, None])
     H[m:m + p, -1] += X.T @ acc["s1"]
     H[-1, m:m + p] += X.T @ acc["s1"]
@@ -64,51 +69,55 @@ def moment_hessian(rows, acc):
     return H
 
 
-def _theta_block(y, m, up, lo, cu, cl, cols):
-    """``sum_i cu_i 1{y_i = j} cols_i + cl_i 1{y_i - 1 = j} cols_i`` as an (m, k) array."""
-    out = np.empty((m, cols.shape[1]))
-    for j in range(cols.shape[1]):
-        out[:, j] = (np.bincount(y[up], cu[up] * cols[up, j], minlength=m)[:m]
-                     + np.bincount(y[lo] - 1, cl[lo] * cols[lo, j], minlength=m)[:m])
-    return out
-
-
 def group_matrix(rows):
-    """Sparse (n_groups, n) matrix with each row's weight (1 without weights) in its group."""
+    """Sparse (n_groups, n) matrix of each row's weight (1 without weights) in its group.
+
+    Compressed by columns: a product with an (n, Q) array then reads the rows in order and
+    adds them into the small (n_groups, Q) result (rows need not be sorted by group).
+    """
     n = len(rows.groups)
     w = np.ones(n) if rows.weights is None else rows.weights
-    return sparse.csr_matrix((w, (rows.groups, np.arange(n))), shape=(rows.n_groups, n))
+    return sparse.csc_matrix((w, (rows.groups, np.arange(n))), shape=(rows.n_groups, n))
 
 
-def threshold_matrices(rows):
-    """Sparse (n_groups * m, n) matrices adding weighted rows into (group, threshold) cells:
-    the upper end (rows below the top category, threshold ``y_i``) and the lower end (rows
-    above the bottom one, threshold ``y_i - 1``)."""
-    m, y, g = rows.n_levels - 1, rows.codes, rows.groups
-    n = len(y)
+def score_matrices(rows):
+    """Sparse matrices ``(M_u, M_l)`` with ``M_u @ d_u + M_l @ d_l`` the threshold and effect
+    parts of every group's score, for per-row derivatives ``d_u``, ``d_l`` of ``log P`` in
+    the interval ends (shape (n,) or (n, Q)).
+
+    Rows ``0 .. G m - 1`` of the result are the (group, threshold) cells: the upper end of a
+    row adds to its own threshold ``y_i`` (rows below the top category), the lower end to
+    ``y_i - 1`` (rows above the bottom one).  Rows ``G m + g p + j`` are group ``g``'s effect
+    ``j``: both ends add ``-w_i x_ij`` (``d u / d beta = d l / d beta = -x``).
+    """
+    m, p, y, g = rows.n_levels - 1, rows.X.shape[1], rows.codes, rows.groups
+    n, G = len(y), rows.n_groups
     w = np.ones(n) if rows.weights is None else rows.weights
+    eff_rows = (G * m + g[:, None] * p + np.arange(p)[None, :]).ravel()
+    eff_cols = np.repeat(np.arange(n), p)
+    eff_data = -(w[:, None] * rows.X).ravel()
     out = []
     for keep, shift in ((y < m, 0), (y > 0, -1)):
         i = np.flatnonzero(keep)
-        out.append(sparse.csr_matrix((w[i], (g[i] * m + y[i] + shift, i)), shape=(rows.n_groups * max(m, 1), n)))
+        r = np.concatenate([g[i] * m + y[i] + shift, eff_rows])
+        c = np.concatenate([i, eff_cols])
+        out.append(sparse.csc_matrix((np.concatenate([w[i], eff_data]), (r, c)), shape=(G * (m + p), n)))
     return tuple(out)
 
 
-def node_scores(rows, Zw, thresholds, T, nodes, s1_groups):
+def node_scores(rows, matrices, T, nodes, s1_groups):
     """Score vector of each group at each node, shape (n_groups, n_nodes, n_params).
 
-    ``Zw`` is :func:`group_matrix`, ``thresholds`` :func:`threshold_matrices`, ``T`` the
-    per-row terms at the nodes (arrays (n, Q)), ``nodes`` (n_groups, Q) and ``s1_groups``
-    the weighted group sums of ``d log P / d shift`` at the nodes.
+    ``matrices`` is :func:`score_matrices`, ``T`` the per-row terms at the nodes (arrays
+    (n, Q)), ``nodes`` (n_groups, Q) and ``s1_groups`` the weighted group sums of
+    ``d log P / d shift`` at the nodes (the SD's part is the node times that sum).
     """
     G, Q = nodes.shape
     m, p = rows.n_levels - 1, rows.X.shape[1]
     out = np.empty((G, Q, m + p + 1))
-    th = thresholds[0] @ T["u"] + thresholds[1] @ T["l"]  # (G * m, Q)
-    out[:, :, :m] = th.reshape(G, m, Q).transpose(0, 2, 1)
-    s1 = -(T["u"] + T["l"])
-    for j in range(p):
-        out[:, :, m + j] = Zw @ (s1 * rows.X[:, j:j + 1])
+    sums = matrices[0] @ T["u"] + matrices[1] @ T["l"]  # (G (m + p), Q)
+    out[:, :, :m] = sums[: G * m].reshape(G, m, Q).transpose(0, 2, 1)
+    out[:, :, m:m + p] = sums[G * m:].reshape(G, p, Q).transpose(0, 2, 1)
     out[:, :, -1] = s1_groups * nodes
     return out
 

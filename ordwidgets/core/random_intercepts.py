@@ -25,11 +25,13 @@ from .engine import (check_enough_rows, closed_form_thresholds, covariance_on_us
                      user_scale_matrix)
 from .exceptions import DataWarning, OrdinalDataError
 from .crossed_likelihood import MAX_GROUPS, CrossedRows, laplace_sums
-from .grouped_likelihood import GroupedRows, default_points, differenced_hessian, marginal_sums, quadrature_rule
+from .grouped_likelihood import (GroupedRows, attenuation, choose_points, differenced_hessian, marginal_sums,
+                                 quadrature_rule, sd_start)
 from .links import get_link
 from .layout import parallel_layout
 from .optimize import NewtonOutcome, check_convergence, newton_maximize
 from .sandwich import check_weight_kind, with_robust_covariance
+from .sorted_design import SortedDesign
 
 __all__ = ["RandomInterceptDesign", "LaplaceDesign", "fit_with_options", "fit_random_intercepts", "grouping_columns"]
 
@@ -53,6 +55,11 @@ class _GroupedDesign:
     def hessian(self, link, params):
         """Observed information's negative: central differences of the exact gradient."""
         return differenced_hessian(lambda x: self.evaluate(link, x, order=1).grad, params)
+
+    def observed_hessian(self, link, params, last):
+        """Hessian for the covariance at the optimum: :meth:`hessian` (``last``, the
+        Newton metric, is not the Hessian of this approximation)."""
+        return self.hessian(link, params)
 
     def start(self, link, sigma=1.0):
         """Thresholds and effects maximised at every ``sigma_c = 1``, then those SDs.
@@ -79,14 +86,41 @@ class RandomInterceptDesign(_GroupedDesign):
 
     Parameters are ``[theta (J-1), beta (p), sigma]`` on standardised columns.  The modes
     of the last evaluation are kept to warm-start the next one (they change the work, not
-    the result: each evaluation iterates its modes to 1e-10).
+    the result: each evaluation iterates its modes to 1e-10).  With ``points=None`` the
+    number of quadrature points is chosen at the start values
+    (:func:`~ordwidgets.core.grouped_likelihood.choose_points`) and checked again at the
+    optimum by :func:`fit_random_intercepts`.
     """
 
     n_sds = 1
 
-    def __init__(self, rows: GroupedRows, points: int):
-        self.rows, self.points = rows, points
-        self._modes = None
+    def __init__(self, rows: GroupedRows, points: int | None):
+        self.rows, self.points, self.auto = rows, points, points is None
+        self._modes, self._warm = None, None
+
+    def start(self, link):
+        """Start values from the plain model on the same rows.
+
+        The plain fit (the one engine on the rows without the random intercept) estimates
+        the population-averaged effects; the SD starts from the spread of the groups'
+        one-step effects (:func:`~ordwidgets.core.grouped_likelihood.sd_start`), and
+        thresholds and effects are scaled up by the attenuation factor of that SD
+        (:func:`~ordwidgets.core.grouped_likelihood.attenuation`).  After a change of the
+        number of points, the previous optimum is the start.
+        """
+        link = get_link(link)
+        if self._warm is not None and self._warm[0] == link.name:
+            return self._warm[1].copy()
+        rows = self.rows
+        plain = maximise(SortedDesign(np.asfortranarray(rows.X), rows.bounds, rows.weights), link, warn=False,
+                         what="plain start of the random-intercept fit")
+        if not np.all(np.isfinite(plain.params)):
+            return super().start(link)
+        sigma = sd_start(rows, link, plain.params)
+        params = np.append(plain.params * attenuation(link, sigma), sigma)
+        if self.points is None:
+            self.points = choose_points(rows, link, params).points
+        return params
 
     def evaluate(self, link, params, *, order=2):
         """The full :class:`~ordwidgets.core.grouped_likelihood.MarginalSums`."""
@@ -98,16 +132,27 @@ class RandomInterceptDesign(_GroupedDesign):
     def sums(self, link, params, *, order=2):
         """Log-likelihood, exact gradient and the Newton steps' Hessian.
 
-        With fewer than 5 points (the Laplace approximation) the fixed-node Hessian misses
+        With fewer than 3 points (the Laplace approximation) the fixed-node Hessian misses
         the curvature's own dependence on the parameters and makes Newton crawl; the steps
         then use the 5-point fixed-node Hessian (a metric only: value and gradient stay
         those of the requested approximation).
         """
-        out = self.evaluate(link, params, order=min(order, 1) if self.points < 5 else order)
+        out = self.evaluate(link, params, order=min(order, 1) if self.points < 3 else order)
         hess = out.hess
-        if order >= 2 and self.points < 5:
+        if order >= 2 and self.points < 3:
             hess = marginal_sums(self.rows, link, params, points=5, order=2, start_modes=out.modes).hess
         return out.loglik, out.grad, hess
+
+    def observed_hessian(self, link, params, last):
+        """Hessian for the covariance at the optimum ``params``.
+
+        From 3 points on, ``last`` (the fixed-node Hessian of the last Newton evaluation, at
+        ``params``): with nodes this accurate the quadrature barely depends on where they
+        sit, so it is the Hessian of the integral to the rule's accuracy (checked against
+        differences of the exact gradient in the tests).  Below 3 points the exact gradient
+        is differenced.
+        """
+        return last if self.points >= 3 and last is not None else self.hessian(link, params)
 
     def conditional_effects(self, link, params):
         """Per grouping column: conditional modes of ``z`` and their (Laplace) SDs."""
@@ -156,13 +201,15 @@ def grouping_columns(random_intercepts):
     return cols
 
 
-def _check_points(quadrature, link):
-    points = default_points(link) if quadrature is None else quadrature
+def _check_points(quadrature):
+    """``None`` (choose per data set) or a valid number of points."""
+    if quadrature is None:
+        return None
     try:
-        quadrature_rule(points)
+        quadrature_rule(quadrature)
     except ValueError as exc:
         raise OrdinalDataError(str(exc)) from None
-    return int(points)
+    return int(quadrature)
 
 
 def _is_dask(data):
@@ -236,8 +283,11 @@ def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, 
         (:mod:`~ordwidgets.core.grouped_likelihood`); several (nested or crossed): the
         Laplace approximation (:mod:`~ordwidgets.core.crossed_likelihood`).
     quadrature : int, optional
-        Points per group (default 9, 17 for the cauchit:
-        :func:`~ordwidgets.core.grouped_likelihood.default_points`; 1 = Laplace approximation).
+        Points per group (1 = Laplace approximation).  Default: the fewest of 3, 5, 7, ...
+        whose log-likelihood matches a 50-point rule to 1e-4, estimated on a sample of the
+        groups at the start values and checked again at the optimum
+        (:func:`~ordwidgets.core.grouped_likelihood.choose_points`); the number used is in
+        ``options["quadrature"]``.
     Other parameters as :func:`ordwidgets.core.fitting.fit`.
 
     Returns
@@ -256,8 +306,8 @@ def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, 
     design = _design_for(groups, coded, (prep.X - mean) / sd, prep, quadrature, lk)
     names = threshold_labels(prep.levels) + list(prep.columns) + [f"sd({g})" for g in groups]
     A = _user_matrix(prep.columns, threshold_labels(prep.levels), mean, sd, C)
-    fitted = maximise(design, lk, to_user=A, names=names, max_iter=max_iter, tol=tol, callback=callback,
-                      what=f"random-intercept fit {formula!r}")
+    fitted = _maximise_checking_points(design, lk, to_user=A, names=names, max_iter=max_iter, tol=tol,
+                                       callback=callback, what=f"random-intercept fit {formula!r}")
     outcome, cov, converged, message, condition = _observed_information(design, lk, fitted, A, formula)
     return build_result(prep, lk, design, outcome, A @ outcome.params, cov, converged=converged, message=message,
                         condition=condition, largest_score=fitted.largest_score, formula=formula,
@@ -266,12 +316,28 @@ def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, 
                         options={"weights": weights, "levels": levels, "quadrature": design.points})
 
 
+def _maximise_checking_points(design, link, **options):
+    """:func:`maximise`; with points chosen per data set, the choice is checked again at the
+    optimum and, if more points are needed there, the fit continues from it with them."""
+    fitted = maximise(design, link, **options)
+    for _ in range(3):
+        params = fitted.internal.params
+        if not getattr(design, "auto", False) or not np.all(np.isfinite(params)):
+            break
+        points = choose_points(design.rows, link, params).points
+        if points <= design.points:
+            break
+        design.points, design._warm = points, (link.name, np.array(params, float))
+        fitted = maximise(design, link, **options)
+    return fitted
+
+
 def _observed_information(design, link, fitted, A, formula):
-    """Covariance from the differenced exact Hessian; the fit is trusted only if it is definite."""
+    """Covariance from the design's observed Hessian; the fit is trusted only if it is definite."""
     outcome = fitted.internal
     if not np.all(np.isfinite(outcome.params)):
         return outcome, fitted.cov, fitted.converged, fitted.message, fitted.curvature_condition
-    H = design.hessian(link, outcome.params)
+    H = design.observed_hessian(link, outcome.params, outcome.hess)
     outcome = NewtonOutcome(outcome.params, outcome.loglik, outcome.grad, H, outcome.iterations,
                             outcome.decrement, outcome.status)
     converged, message, condition = fitted.converged, fitted.message, fitted.curvature_condition
@@ -285,7 +351,7 @@ def _design_for(groups, coded, Xs, prep, quadrature, link):
     J = len(prep.levels)
     if len(groups) == 1:
         rows, _ = GroupedRows.from_rows(Xs, prep.y, coded[0][0], J, prep.weights)
-        return RandomInterceptDesign(rows, _check_points(quadrature, link))
+        return RandomInterceptDesign(rows, _check_points(quadrature))
     if quadrature not in (None, 1):
         raise OrdinalDataError(f"several grouping columns ({', '.join(groups)}) use the Laplace approximation: "
                                f"leave quadrature= out or set it to 1, got {quadrature!r}")
