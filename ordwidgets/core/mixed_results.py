@@ -22,14 +22,14 @@ from functools import cached_property
 import numpy as np
 import pandas as pd
 from numpy.polynomial.hermite_e import hermegauss
-from scipy import optimize, special, stats
+from scipy import special, stats
 
 from .design import threshold_labels
 from .exceptions import ComparisonError, OrdinalDataError
 from .layout import parallel_layout
-from .optimize import newton_maximize
 from .probabilities import category_probabilities
 from .results import FitResult, TrainingData
+from .sd_profile import sd_profile_intervals
 
 __all__ = ["RandomInterceptFit", "build_result", "compare_random_part", "GROUP_KINDS"]
 
@@ -85,7 +85,7 @@ class RandomInterceptFit(FitResult):
         """Variance components with a profile-likelihood interval of the SD at ``level``
         (each level is computed once per result)."""
         if level not in self._solved_intervals:
-            self._solved_intervals[level] = _sd_profile_interval(self, level)
+            self._solved_intervals[level] = sd_profile_intervals(self, level)
         lo, hi = self._solved_intervals[level]
         return pd.DataFrame({"sd": self.sds, "lower": lo, "upper": hi,
                              "n_groups": [len(lab) for lab in self.group_labels]}, index=list(self.groups))
@@ -297,61 +297,6 @@ def build_result(prep, lk, design, outcome, user, cov, *, converged, message, co
         group_codes=tuple(np.asarray(c) for c in group_codes), group_modes=modes, group_mode_se=mode_se,
         likelihood=design, internal_params=internal, layout=parallel_layout(prep.columns, threshold_labels(prep.levels)),
     )
-
-
-# ---- profile likelihood of the SD ---------------------------------------------------------
-def _profile_loglik(res, column, sigma, start):
-    """Maximum of the marginal log-likelihood over all else at a fixed SD of one column."""
-    design, link = res.likelihood, res.link
-    j = len(res.params) + column
-    free = np.flatnonzero(np.arange(len(res.internal_params)) != j)
-
-    def full(v):
-        x = np.empty(len(free) + 1)
-        x[free], x[j] = v, sigma
-        return x
-
-    def evaluate(v, order):
-        ll, g, H = design.sums(link, full(v), order=order)
-        return ll, None if g is None else g[free], None if H is None else H[np.ix_(free, free)]
-
-    out = newton_maximize(evaluate, start[free], feasible=lambda v: design.feasible(full(v)), max_iter=200,
-                          tol=1e-10)
-    return out.loglik, full(out.params)
-
-
-def _sd_profile_interval(res, level):
-    """Profile-likelihood intervals ``(lower, upper)`` (arrays over grouping columns)."""
-    if res.likelihood is None:
-        return np.full(len(res.groups), np.nan), np.full(len(res.groups), np.nan)
-    ends = [_one_sd_interval(res, c, level) for c in range(len(res.groups))]
-    return np.array([e[0] for e in ends]), np.array([e[1] for e in ends])
-
-
-def _one_sd_interval(res, column, level):
-    crit = stats.chi2.isf(1 - level, 1)
-    sd = float(res.sds[column])
-    start = np.array(res.internal_params, float)
-    start[len(res.params):] = np.abs(start[len(res.params):])
-    cache, solved = {}, {sd: start}
-
-    def excess(s):
-        if s not in cache:
-            near = solved[min(solved, key=lambda t: abs(t - s))]  # warm start from the nearest solved SD
-            ll, solved[s] = _profile_loglik(res, column, s, near)
-            cache[s] = 2.0 * (res.loglik - ll) - crit
-        return cache[s]
-
-    tol = 1e-5 * max(sd, 1e-2)
-    lower = 0.0 if excess(0.0) <= 0 else optimize.brentq(excess, 0.0, sd, xtol=tol)
-    var = res.full_cov[len(res.params) + column, len(res.params) + column]
-    step = 2.0 * max(float(np.sqrt(var)) if np.isfinite(var) and var > 0 else 0.5, 0.05)
-    hi = sd + step
-    for _ in range(12):
-        if excess(hi) > 0:
-            return lower, optimize.brentq(excess, sd, hi, xtol=tol)
-        hi = sd + 2.0 * (hi - sd)
-    return lower, np.inf
 
 
 # ---- likelihood-ratio test of the random part ------------------------------------------------
