@@ -2,7 +2,7 @@
 import numpy as np
 import pandas as pd
 import pytest
-from scipy import differentiate
+from scipy import differentiate, stats
 
 import ordwidgets as ow
 from ordwidgets.core.sandwich import sandwich_covariance
@@ -107,3 +107,33 @@ def test_sandwich_pure_function_and_refusals():
         ow.fit("grade ~ x0", df, cluster="nosuch")
     with pytest.raises(ow.OrdinalDataError, match="cluster"):
         ow.fit("grade ~ x0", df, random_intercepts=["site"], cluster="site")
+
+
+def test_likelihood_ratio_tests_and_profiles_refuse_or_warn_with_clusters():
+    """With a cluster-robust covariance or sampling weights, likelihood-ratio statistics
+    assume independent rows (common practice, no source: the statistic is chi-squared only
+    for independent rows), so the comparison and profile intervals are refused naming why,
+    the term tests give Wald only (with the robust covariance) and the proportional-odds
+    tests warn."""
+    df, *_ = data()
+    plain = ow.fit("grade ~ x0 + x1", df)
+    for kwargs, why in (({"cluster": "site"}, "cluster='site'"), ({"weights": "w", "weight_kind": "sampling"},
+                                                                  "sampling weights")):
+        small, big = ow.fit("grade ~ x0", df, **kwargs), ow.fit("grade ~ x0 + x1", df, **kwargs)
+        with pytest.raises(ow.ComparisonError, match="independent rows"):
+            ow.compare(small, big)
+        with pytest.raises(ow.OrdinalDataError, match=f"(?s){why}.*independent rows"):
+            big.intervals(method="profile")
+        wald = big.intervals()  # Wald intervals use the robust covariance
+        se = np.sqrt(np.diag(big.cov))
+        np.testing.assert_allclose(wald["upper"] - wald["lower"], 2 * stats.norm.isf(0.025) * se, rtol=1e-9)
+        tests = big.term_tests()
+        assert tests["lr_p_value"].isna().all() and tests["note"].str.contains("independent rows").all()
+        assert tests["wald_p_value"].notna().all()
+        with pytest.warns(ow.DataWarning, match="independent rows"):
+            po = big.proportional_odds_test()
+        assert po["note"].str.contains("independent rows").all()
+    mixed = ow.fit("grade ~ x0 + x1", df, random_intercepts=["site"])
+    with pytest.raises(ow.ComparisonError, match="independent rows"):
+        ow.compare(ow.fit("grade ~ x0 + x1", df, cluster="site"), mixed)
+    assert ow.compare(plain, mixed).loc["larger", "p_value"] < 0.05  # model-based fits still compare

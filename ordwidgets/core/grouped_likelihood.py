@@ -26,8 +26,16 @@ implicit-function theorem (``dzhat/dpsi = h_zpsi / c``,
 ``dc/dpsi = -(h_zzpsi + h_zzz dzhat/dpsi)``), which needs third derivatives of the row
 log-probabilities (:func:`log_density_curvature`).  The Hessian returned is that of the
 quadrature with the nodes held where they are (``sum_k pi_k (H_k + s_k s_k') - sbar sbar'``
-per group); it is what Newton steps use.  For the covariance of the estimates use
-:func:`differenced_hessian`, which differences the exact gradient.
+per group); it is what Newton steps use.  With the nodes held fixed the derivatives lose
+part of the adaptive rule's accuracy, so the covariance of a fit takes this Hessian with
+about twice the points (or :func:`differenced_hessian`, which differences the exact
+gradient, for the Laplace approximation).
+
+Every evaluation passes over the rows once for all nodes (arrays of shape ``(n, Q)``) plus
+a few times for the modes (Newton steps per group, warm-started from the previous
+evaluation's modes) and once for the third derivatives at the modes; sums per group are
+products with a sparse group matrix.  The default number of points is chosen per data set
+(:func:`ordwidgets.core.grouped_choices.choose_points`).
 """
 from __future__ import annotations
 
@@ -44,24 +52,15 @@ from .objective import row_logp, row_terms, sort_by_category
 
 __all__ = ["GroupedRows", "MarginalSums", "marginal_sums", "find_modes", "log_density_curvature",
            "differenced_hessian", "quadrature_rule", "DEFAULT_POINTS", "default_points", "shift_terms",
-           "shift_derivatives", "parameter_sums", "sorted_codes", "sorted_counts", "choose_points",
-           "PointsChoice", "sd_start", "attenuation"]
+           "shift_derivatives", "parameter_sums", "sorted_codes", "sorted_counts"]
 
 #: Points of a fixed rule (:func:`default_points`) for callers that want one without looking
 #: at the data: enough for the log-likelihood to match a 50-point integral to 1e-4 on the
 #: tests' data (groups of about 15 rows, SD 1.1); the cauchit's heavy tails make the
 #: conditional densities less normal and need :data:`CAUCHIT_POINTS`.  Fits choose their
-#: default per data set instead (:func:`choose_points`).
+#: default per data set instead (:mod:`ordwidgets.core.grouped_choices`).
 DEFAULT_POINTS = 9
 CAUCHIT_POINTS = 17
-
-#: :func:`choose_points`: the reference rule, the tolerance on the log-likelihood, the
-#: candidates tried in turn and the number of groups looked at.
-REFERENCE_POINTS = 50
-POINTS_TOL = 1e-4
-CANDIDATE_POINTS = tuple(range(3, 50, 2))
-SAMPLED_GROUPS = 120
-
 
 def default_points(link):
     """Fixed default quadrature points for ``link`` (see :data:`DEFAULT_POINTS`)."""
@@ -335,8 +334,8 @@ def marginal_sums(rows, link, params, *, points=None, order=2, start_modes=None,
     link : Link or str
     params : ndarray, shape (J - 1 + p + 1,)
     points : int, optional
-        Quadrature points per group (1 = Laplace); default: :func:`choose_points` at
-        ``params`` (the fewest that match a 50-point integral to 1e-4).
+        Quadrature points per group (1 = Laplace); default :func:`default_points` (fits
+        choose theirs per data set: :func:`ordwidgets.core.grouped_choices.choose_points`).
     order : {0, 1, 2}
         0: log-likelihood only; 1: with the exact gradient; 2: also the fixed-node Hessian.
     start_modes : ndarray, optional
@@ -353,7 +352,7 @@ def marginal_sums(rows, link, params, *, points=None, order=2, start_modes=None,
     theta, beta, sigma = params[:m], params[m:m + p], float(params[m + p])
     eta = rows.X @ beta if p else np.zeros(len(rows.groups))
     if points is None:
-        points = choose_points(rows, link, params).points
+        points = default_points(link)
     z, c = find_modes(rows, link, theta, eta, sigma, start=start_modes)
     t, logw = quadrature_rule(points)
     nodes = z[:, None] + t[None, :] / np.sqrt(c)[:, None]
@@ -415,101 +414,6 @@ def _node_correction(rows, link, theta, eta, sigma, z, c, t, pi, nodes, s1_group
     cs = r * sigma * s2 + q * s2_ * s3
     csig = r * (s1 + sigma * zr * s2) + q * (2 * sigma * s2 + s2_ * zr * s3)
     return parameter_sums(rows, cu, cl, cs, csig)
-
-
-def sd_start(rows, link, plain_params, *, floor=0.2):
-    """A start value of the SD from the plain model's optimum ``[theta, beta]``.
-
-    Each group's one-step estimate of its effect is ``d_g = S_g / I_g`` with ``S_g`` and
-    ``I_g`` the group's score and information in a common shift at the plain fit; with
-    ``var(d_g) ~ sigma^2 + 1 / I_g`` the moment estimate is
-    ``sigma^2 = mean(d_g^2 - 1 / I_g)`` (a method-of-moments start, common practice, no
-    source), at least ``floor`` (``sigma = 0`` is a stationary point to stay away from).
-    """
-    m = rows.n_levels - 1
-    theta, beta = plain_params[:m], plain_params[m:]
-    eta = rows.X @ beta if len(beta) else np.zeros(len(rows.groups))
-    s1, s2, _ = shift_derivatives(shift_terms(get_link(link), rows, theta, eta, order=2))
-    score, info = rows.group_total(s1), -rows.group_total(s2)
-    ok = info > 0
-    if not ok.any():
-        return floor
-    est = float(np.mean((score[ok] / info[ok]) ** 2 - 1.0 / info[ok]))
-    return max(np.sqrt(est) if est > 0 else 0.0, floor)
-
-
-def attenuation(link, sigma):
-    """Approximate ratio of conditional to population-averaged effects at SD ``sigma``.
-
-    ``sqrt(1 + sigma^2)`` for the probit (exact: a normal intercept added to a normal latent
-    error); ``sqrt(1 + (16 sqrt(3) / (15 pi))^2 sigma^2)`` for the logit (Zeger, Liang &
-    Albert 1988, Biometrics 44:1049-1060); ``sqrt(1 + sigma^2 / v)`` with the latent variance
-    ``v = pi^2 / 6`` for the Gumbel links and ``v = 1`` for the cauchit (which has none:
-    common practice, no source).  Used for start values only.
-    """
-    name = get_link(link).name
-    inv_var = {"probit": 1.0, "logit": (16.0 * np.sqrt(3.0) / (15.0 * np.pi)) ** 2,
-               "cloglog": 6.0 / np.pi ** 2, "loglog": 6.0 / np.pi ** 2}.get(name, 1.0)
-    return float(np.sqrt(1.0 + inv_var * sigma * sigma))
-
-
-@dataclass(frozen=True)
-class PointsChoice:
-    """Outcome of :func:`choose_points`.
-
-    ``points`` chosen; ``error`` the estimated ``|loglik(points) - loglik(reference)|``
-    summed over all groups; ``sampled`` the number of groups the estimate is based on.
-    """
-
-    points: int
-    error: float
-    sampled: int
-
-
-def _sampled_groups(rows, size):
-    """The groups the choice of points looks at, and the weight of each in the total.
-
-    All groups when there are at most ``size``; otherwise the ``size // 2`` groups with the
-    fewest (weighted) rows, whose conditional densities are the least normal and whose
-    quadrature errors the largest, each counted once, and a seeded random sample of the
-    others standing for all of them (a stratified estimate of the total).
-    """
-    G = rows.n_groups
-    if G <= size:
-        return np.arange(G), np.ones(G)
-    small = np.argsort(rows.group_total(np.ones(len(rows.groups))), kind="stable")[: size // 2]
-    rest = np.setdiff1d(np.arange(G), small)
-    drawn = np.sort(np.random.default_rng(0).choice(rest, size - len(small), replace=False))
-    return np.concatenate([small, drawn]), np.concatenate([np.ones(len(small)),
-                                                          np.full(len(drawn), len(rest) / len(drawn))])
-
-
-def choose_points(rows, link, params, *, tol=POINTS_TOL, reference=REFERENCE_POINTS,
-                  candidates=CANDIDATE_POINTS, sample=SAMPLED_GROUPS):
-    """The fewest quadrature points whose log-likelihood matches a ``reference``-point rule.
-
-    The candidates (3, 5, 7, ... points: odd rules keep a node at each mode) are tried in
-    turn on the groups of :func:`_sampled_groups` at ``params``; the first whose estimated
-    total error ``sum_g |l_g(points) - l_g(reference)|`` (groups weighted as sampled) is at
-    most ``tol`` is returned, else the reference itself.  Adaptive Gauss-Hermite errors fall
-    quickly as points are added (Pinheiro & Bates 1995), so the reference stands for the
-    integral.
-
-    Returns
-    -------
-    PointsChoice
-    """
-    ids, weight = _sampled_groups(rows, sample)
-    sub = rows if len(ids) == rows.n_groups else rows.subset(ids)
-    ref = marginal_sums(sub, link, params, points=reference, order=0)
-    for Q in candidates:
-        if Q >= reference:
-            break
-        out = marginal_sums(sub, link, params, points=Q, order=0, start_modes=ref.modes)
-        err = float(np.sum(weight * np.abs(out.group_loglik - ref.group_loglik)))
-        if err <= tol:
-            return PointsChoice(int(Q), err, len(ids))
-    return PointsChoice(int(reference), 0.0, len(ids))
 
 
 def differenced_hessian(gradient, params, *, rel_step=1e-5):

@@ -24,6 +24,7 @@ from .extended_fit import layout_design
 from .layout import all_training_rows, layout_of
 from .objective import SortedColumns, sort_by_category
 from .optimize import newton_maximize
+from .sandwich import refuse_likelihood_tests
 
 __all__ = ["intervals", "wald_intervals", "profile_intervals", "compare"]
 
@@ -162,8 +163,16 @@ def profile_intervals(res, level=0.95, *, which=None):
     ----------
     which : list of str, optional
         Parameter names to profile (default: all); the others are ``nan``.
+
+    Raises
+    ------
+    OrdinalDataError
+        For a fit with a cluster-robust covariance (``cluster=``) or sampling weights: the
+        profile likelihood assumes independent rows and would ignore that covariance; the
+        Wald intervals use it.
     """
     check_level(level)
+    refuse_likelihood_tests("profile-likelihood intervals", res)
     tr = all_training_rows(res, "a profile interval")
     design = user_scale_design(res)
     z = float(wald_bounds(0.0, 1.0, level)[1])  # the normal quantile of the Wald interval
@@ -186,6 +195,8 @@ def intervals(res, level=0.95, *, method="wald"):
     level : float
         Coverage, strictly between 0 and 1.
     method : {"wald", "profile"}
+        ``"profile"`` is refused for fits with a cluster-robust covariance or sampling
+        weights (see :func:`profile_intervals`); ``"wald"`` uses the fit's covariance.
 
     Returns
     -------
@@ -263,7 +274,10 @@ def compare(smaller, larger):
     ------
     ComparisonError
         If the fits are not nested (a predictor or a freer effect in the smaller fit that
-        the larger lacks; different link or levels) or were fitted on different rows.
+        the larger lacks; different link or levels) or were fitted on different rows; and
+        if either fit has a cluster-robust covariance (``cluster=``) or sampling weights:
+        the statistic assumes independent rows, so it would ignore that covariance
+        (:func:`~ordwidgets.core.sandwich.likelihood_caveat`).
 
     Returns
     -------
@@ -271,6 +285,7 @@ def compare(smaller, larger):
         Rows ``"smaller"``, ``"larger"``; columns ``model``, ``n_params``, ``loglik``,
         ``statistic``, ``df``, ``p_value`` (the last three on the ``"larger"`` row).
     """
+    refuse_likelihood_tests("likelihood-ratio comparison", smaller, larger, error=ComparisonError)
     if getattr(larger, "groups", ()) and not getattr(smaller, "groups", ()):
         return larger.random_part_test(smaller)  # sigma = 0 on its boundary (RandomInterceptFit)
     _check_same_rows(smaller, larger)

@@ -29,6 +29,7 @@ from .exceptions import ComparisonError, OrdinalDataError
 from .layout import parallel_layout
 from .probabilities import category_probabilities
 from .results import FitResult, TrainingData
+from .sandwich import refuse_likelihood_tests
 from .sd_profile import sd_profile_intervals
 
 __all__ = ["RandomInterceptFit", "build_result", "compare_random_part", "GROUP_KINDS"]
@@ -312,6 +313,7 @@ def compare_random_part(plain, mixed):
     """
     if not isinstance(mixed, RandomInterceptFit) or isinstance(plain, RandomInterceptFit):
         raise ComparisonError("compare the plain fit first, then the random-intercept fit")
+    refuse_likelihood_tests("likelihood-ratio test of the random part", plain, error=ComparisonError)
     if plain.options.get("nonparallel") or plain.options.get("scale_by"):
         raise ComparisonError("the plain fit has per-threshold or scale effects; the random-intercept fit has not")
     if (plain.link.name != mixed.link.name or tuple(plain.levels) != tuple(mixed.levels)

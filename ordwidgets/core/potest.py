@@ -32,17 +32,25 @@ per design column of such terms.
 **Warm starts.**  Every refit starts at the parallel fit itself (each freed effect set to its
 parallel value at every threshold), which is feasible and close to the answer, so Newton's
 method needs a few steps; the refits share the rows sorted by category once.
+
+**Clusters and sampling weights.**  Both tests assume independent rows.  For a fit with a
+cluster-robust covariance (``cluster=``) or sampling weights they are still computed, with a
+``DataWarning`` and the reason in each row's ``note``: their p-values ignore the fit's
+covariance and are too small when rows within a cluster are correlated.
 """
 from __future__ import annotations
+
+import warnings
 
 import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .exceptions import CrossingError
+from .exceptions import CrossingError, DataWarning
 from .extended_fit import fit_layout
 from .layout import ModelLayout, all_training_rows, cumulative_predictors, layout_of
 from .objective import sort_by_category, sorted_standardised
+from .sandwich import likelihood_caveat
 from .terms import term_columns
 
 __all__ = ["proportional_odds_test", "brant_test", "tested_terms"]
@@ -243,6 +251,10 @@ def proportional_odds_test(res, *, detail=False):
         ``brant_note``.
     """
     tr = all_training_rows(res, "the proportional-odds test")
+    caveat = likelihood_caveat(res)
+    if caveat:
+        warnings.warn(f"proportional-odds tests: {caveat}, and so does the Brant test's covariance: these "
+                      "p-values do not use the fit's covariance", DataWarning, stacklevel=3)
     layout = layout_of(res)
     if not layout.location:
         raise ValueError("the fit has no parallel effect to test")
@@ -259,4 +271,6 @@ def proportional_odds_test(res, *, detail=False):
     order = ["statistic", "df", "p_value", "max_prob_change", "mean_prob_change", "note"]
     lr = lr.reindex(columns=order)
     frame = lr.join(brant_test(res, detail=detail))
+    if caveat:
+        frame["note"] = [f"{n}; {caveat}" if n else caveat for n in frame["note"].fillna("")]
     return frame[order[:3] + ["brant_statistic", "brant_df", "brant_p_value"] + order[3:] + ["brant_note"]]

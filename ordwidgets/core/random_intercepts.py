@@ -7,9 +7,13 @@ Gibbons 1994).  The marginal likelihood is integrated by adaptive Gauss-Hermite 
 the one engine (:func:`ordwidgets.core.engine.maximise`) as a *design* with the same
 protocol as the plain and extended models (``n_params``, ``counts()``, ``sums(link, params,
 order)``, ``feasible``, ``start``), on standardised columns.  The Newton steps use an
-approximate Hessian (see each design); the covariance is the inverse of the Hessian obtained
-by differencing the exact gradient at the optimum, and the fit counts as converged only
-when that Hessian is negative definite too.
+approximate Hessian (see each design).  The covariance is the inverse of the negative
+observed Hessian at the optimum: for one grouping column with at least 3 points one
+analytic fixed-node Hessian with about twice the points (:meth:`RandomInterceptDesign.observed_hessian`),
+otherwise the exact gradient differenced; the fit counts as converged only when that
+Hessian is negative definite too.  The one-column fit starts from the plain model on the
+same rows (:meth:`RandomInterceptDesign.start`) and, by default, chooses its number of
+quadrature points per data set (:func:`~ordwidgets.core.grouped_choices.choose_points`).
 """
 from __future__ import annotations
 
@@ -25,8 +29,8 @@ from .engine import (check_enough_rows, closed_form_thresholds, covariance_on_us
                      user_scale_matrix)
 from .exceptions import DataWarning, OrdinalDataError
 from .crossed_likelihood import MAX_GROUPS, CrossedRows, laplace_sums
-from .grouped_likelihood import (GroupedRows, attenuation, choose_points, differenced_hessian, marginal_sums,
-                                 quadrature_rule, sd_start)
+from .grouped_choices import REFERENCE_POINTS, attenuation, choose_points, sd_start
+from .grouped_likelihood import GroupedRows, differenced_hessian, marginal_sums, quadrature_rule
 from .links import get_link
 from .layout import parallel_layout
 from .optimize import NewtonOutcome, check_convergence, newton_maximize
@@ -56,9 +60,9 @@ class _GroupedDesign:
         """Observed information's negative: central differences of the exact gradient."""
         return differenced_hessian(lambda x: self.evaluate(link, x, order=1).grad, params)
 
-    def observed_hessian(self, link, params, last):
-        """Hessian for the covariance at the optimum: :meth:`hessian` (``last``, the
-        Newton metric, is not the Hessian of this approximation)."""
+    def observed_hessian(self, link, params):
+        """Hessian for the covariance at the optimum: :meth:`hessian` (the Newton metric is
+        not the Hessian of this approximation)."""
         return self.hessian(link, params)
 
     def start(self, link, sigma=1.0):
@@ -88,7 +92,7 @@ class RandomInterceptDesign(_GroupedDesign):
     of the last evaluation are kept to warm-start the next one (they change the work, not
     the result: each evaluation iterates its modes to 1e-10).  With ``points=None`` the
     number of quadrature points is chosen at the start values
-    (:func:`~ordwidgets.core.grouped_likelihood.choose_points`) and checked again at the
+    (:func:`~ordwidgets.core.grouped_choices.choose_points`) and checked again at the
     optimum by :func:`fit_random_intercepts`.
     """
 
@@ -103,9 +107,9 @@ class RandomInterceptDesign(_GroupedDesign):
 
         The plain fit (the one engine on the rows without the random intercept) estimates
         the population-averaged effects; the SD starts from the spread of the groups'
-        one-step effects (:func:`~ordwidgets.core.grouped_likelihood.sd_start`), and
+        one-step effects (:func:`~ordwidgets.core.grouped_choices.sd_start`), and
         thresholds and effects are scaled up by the attenuation factor of that SD
-        (:func:`~ordwidgets.core.grouped_likelihood.attenuation`).  After a change of the
+        (:func:`~ordwidgets.core.grouped_choices.attenuation`).  After a change of the
         number of points, the previous optimum is the start.
         """
         link = get_link(link)
@@ -143,16 +147,21 @@ class RandomInterceptDesign(_GroupedDesign):
             hess = marginal_sums(self.rows, link, params, points=5, order=2, start_modes=out.modes).hess
         return out.loglik, out.grad, hess
 
-    def observed_hessian(self, link, params, last):
-        """Hessian for the covariance at the optimum ``params``.
+    def observed_hessian(self, link, params):
+        """Hessian for the covariance at the optimum ``params``: one analytic evaluation.
 
-        From 3 points on, ``last`` (the fixed-node Hessian of the last Newton evaluation, at
-        ``params``): with nodes this accurate the quadrature barely depends on where they
-        sit, so it is the Hessian of the integral to the rule's accuracy (checked against
-        differences of the exact gradient in the tests).  Below 3 points the exact gradient
-        is differenced.
+        From 3 points on, the fixed-node Hessian (module docstring of
+        :mod:`~ordwidgets.core.grouped_likelihood`) with :func:`covariance_points` points:
+        with nodes held fixed the derivatives lose the adaptive rule's accuracy (at the
+        fit's own points it can be off by 1e-3 of the SEs in groups of a dozen rows), and
+        about twice the points bring it back to the accuracy of the differenced exact
+        gradient (checked against differences in the tests).  Below 3 points the exact
+        gradient is differenced.
         """
-        return last if self.points >= 3 and last is not None else self.hessian(link, params)
+        if self.points < 3:
+            return self.hessian(link, params)
+        return marginal_sums(self.rows, link, params, points=covariance_points(self.points), order=2,
+                             start_modes=self._modes).hess
 
     def conditional_effects(self, link, params):
         """Per grouping column: conditional modes of ``z`` and their (Laplace) SDs."""
@@ -189,6 +198,12 @@ class LaplaceDesign(_GroupedDesign):
         sd = np.sqrt(np.diag(out.inverse))
         offsets, sizes = self.rows.offsets, self.rows.sizes
         return [(out.modes[o:o + k], sd[o:o + k]) for o, k in zip(offsets, sizes)]
+
+
+def covariance_points(points):
+    """Points of the fixed-node Hessian behind the covariance: ``2 points + 1``, at most 50
+    (:data:`~ordwidgets.core.grouped_choices.REFERENCE_POINTS`) unless ``points`` is more."""
+    return max(points, min(2 * points + 1, REFERENCE_POINTS))
 
 
 def grouping_columns(random_intercepts):
@@ -286,7 +301,7 @@ def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, 
         Points per group (1 = Laplace approximation).  Default: the fewest of 3, 5, 7, ...
         whose log-likelihood matches a 50-point rule to 1e-4, estimated on a sample of the
         groups at the start values and checked again at the optimum
-        (:func:`~ordwidgets.core.grouped_likelihood.choose_points`); the number used is in
+        (:func:`~ordwidgets.core.grouped_choices.choose_points`); the number used is in
         ``options["quadrature"]``.
     Other parameters as :func:`ordwidgets.core.fitting.fit`.
 
@@ -337,7 +352,7 @@ def _observed_information(design, link, fitted, A, formula):
     outcome = fitted.internal
     if not np.all(np.isfinite(outcome.params)):
         return outcome, fitted.cov, fitted.converged, fitted.message, fitted.curvature_condition
-    H = design.observed_hessian(link, outcome.params, outcome.hess)
+    H = design.observed_hessian(link, outcome.params)
     outcome = NewtonOutcome(outcome.params, outcome.loglik, outcome.grad, H, outcome.iterations,
                             outcome.decrement, outcome.status)
     converged, message, condition = fitted.converged, fitted.message, fitted.curvature_condition

@@ -30,7 +30,8 @@ from .exceptions import OrdinalDataError
 from .links import get_link
 from .probabilities import interval_logprob
 
-__all__ = ["sandwich_covariance", "row_scores", "with_robust_covariance", "WEIGHT_KINDS", "COVARIANCE_TYPES"]
+__all__ = ["sandwich_covariance", "row_scores", "with_robust_covariance", "WEIGHT_KINDS", "COVARIANCE_TYPES",
+           "likelihood_caveat", "refuse_likelihood_tests"]
 
 WEIGHT_KINDS = ("frequency", "sampling")
 COVARIANCE_TYPES = ("model", "cluster", "sampling")
@@ -177,6 +178,39 @@ def with_robust_covariance(res, data=None, *, cluster=None, weight_kind="frequen
     options = {**res.options, "covariance_type": kind, "n_clusters": int(G), "weight_kind": weight_kind,
                "cluster": cluster if isinstance(cluster, str) else None}
     return dataclasses.replace(res, cov=cov, options=options)
+
+
+def likelihood_caveat(res):
+    """Why likelihood-ratio statistics of ``res`` are not valid, or ``None``.
+
+    They compare log-likelihoods that assume independent rows (with frequency weights):
+    ``2 (loglik_1 - loglik_0)`` follows chi-squared only then.  With a cluster-robust
+    covariance the rows within a cluster are taken as dependent, and with sampling weights
+    the log-likelihood is a pseudo-likelihood; in both cases the statistic is not
+    chi-squared (too large when rows within a cluster are positively correlated), so
+    likelihood-ratio tests and profile-likelihood intervals would ignore the covariance
+    the fit reports.  Wald tests and intervals use that covariance.
+    """
+    kind = getattr(res, "covariance_type", "model")
+    if kind == "cluster":
+        col = res.options.get("cluster")
+        named = f" (cluster={col!r})" if col else ""
+        return (f"this fit's covariance is cluster-robust{named}, but likelihood-ratio statistics assume "
+                "independent rows")
+    if kind == "sampling":
+        return ("this fit has sampling weights (weight_kind='sampling'): its log-likelihood is a "
+                "pseudo-likelihood, and likelihood-ratio statistics assume independent rows with frequency weights")
+    return None
+
+
+def refuse_likelihood_tests(what, *fits, error=OrdinalDataError):
+    """Raise ``error`` for ``what`` when any of ``fits`` has a caveat
+    (:func:`likelihood_caveat`), pointing to the Wald alternative."""
+    for res in fits:
+        why = likelihood_caveat(res)
+        if why:
+            raise error(f"{what}: {why}; use Wald tests or intervals (method='wald', "
+                                   "term_tests(likelihood_ratio=False)), which use the robust covariance")
 
 
 def check_weight_kind(weight_kind):

@@ -11,7 +11,10 @@ Two tests of "the term adds nothing" for each term:
 The parameters of a term are its parallel effects, its per-threshold effects and its scale
 effects.  Both tests are asymptotic; they agree closely when the fit is well determined and
 drift apart near separation (large estimates, large standard errors), where the
-likelihood-ratio test is the one to trust (Hauck & Donner 1977).
+likelihood-ratio test is the one to trust (Hauck & Donner 1977).  For fits with a
+cluster-robust covariance (``cluster=``) or sampling weights only the Wald test is given (it
+uses that covariance); the likelihood-ratio columns are empty with a note, since the
+statistic assumes independent rows.
 """
 from __future__ import annotations
 
@@ -22,6 +25,7 @@ from scipy import stats
 from .exceptions import CrossingError
 from .layout import ModelLayout, all_training_rows, layout_of, per_threshold_name, scale_name
 from .extended_fit import fit_layout
+from .sandwich import likelihood_caveat
 from .terms import term_columns
 
 __all__ = ["term_parameters", "term_tests"]
@@ -54,7 +58,16 @@ def _without(layout, drop):
 
 
 def _lr(res, cols, df):
-    """Likelihood-ratio statistic, p-value and note for dropping design columns ``cols``."""
+    """Likelihood-ratio statistic, p-value and note for dropping design columns ``cols``.
+
+    Not computed (``nan`` and a note saying why) for a fit with a cluster-robust covariance
+    or sampling weights: the statistic assumes independent rows (see
+    :func:`~ordwidgets.core.sandwich.likelihood_caveat`); the Wald test uses the fit's
+    covariance.
+    """
+    why = likelihood_caveat(res)
+    if why:
+        return np.nan, np.nan, f"no likelihood-ratio test: {why}; see the Wald test"
     tr = all_training_rows(res, "the likelihood-ratio test by term")
     layout = layout_of(res)
     reduced, keep = _without(layout, [layout.columns.index(c) for c in cols])
