@@ -70,10 +70,13 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
         see :func:`ordwidgets.core.random_intercepts.fit_random_intercepts`.
     cluster : str or array_like, optional
         Cluster column: cluster-robust (sandwich) covariance, see
-        :mod:`ordwidgets.core.sandwich`.
+        :mod:`ordwidgets.core.sandwich`.  Likelihood-ratio tests and profile intervals
+        assume independent rows and would ignore it: ``compare`` and profile intervals
+        refuse such fits, term tests give Wald tests only, proportional-odds tests warn.
     weight_kind : {"frequency", "sampling"}
         What ``weights`` are: counts of identical rows (model-based covariance) or survey
-        weights (same estimates, sandwich covariance that ignores the weights' scale).
+        weights (same estimates, sandwich covariance that ignores the weights' scale; the
+        likelihood-ratio tests and profile intervals are treated as with ``cluster``).
 
     Returns
     -------
