@@ -234,8 +234,7 @@ def residual_blocks(state):
 
 
 def _link_table(state):
-    kwargs = {k: v for k, v in state.options.items() if k in ("weights", "levels")}
-    kwargs.update(_spec.model_kwargs(state.nonparallel, state.scale_by, state.included))
+    kwargs = state.fit_kwargs()  # the same random part and covariance under each link
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         return compare_links(state.model_formula, state.data, **kwargs)

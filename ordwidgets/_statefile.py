@@ -40,6 +40,12 @@ def state_to_dict(state) -> dict:
     if weights is not None and not isinstance(weights, str):
         raise StateFileError("weights given as an array cannot be saved; pass the column name")
     levels = state.options.get("levels")
+    unsaved = [f"{k}={v!r}" for k, v in (("random_intercepts", list(state.random_intercepts)),
+                                         *((k, state.options.get(k)) for k in ("quadrature", "cluster", "weight_kind")))
+               if v and v != "frequency"]
+    if unsaved:  # a file without them would load back as another model
+        raise StateFileError(f"state files do not hold {', '.join(unsaved)} yet; save the fit's arguments "
+                             "in code (ow.fit(..., random_intercepts=..., cluster=...)) instead")
     return {
         "format": FORMAT, "version": VERSION, "formula": state.formula, "link": state.link,
         "weights": weights, "levels": None if levels is None else [_plain(v) for v in levels],

@@ -10,13 +10,17 @@ Every panel observes a single counter, :attr:`FitState.updates`, and reads
 ``"residuals"``   residual draws or seed changed;
 ``"selection"``   the brushed rows changed;
 ``"link_table"``  the loglik / AIC / BIC comparison of the links arrived;
+``"group"``       the picked group or the kind of probability shown (random-intercept fits);
 ``"error"``       a spec change was refused (see :attr:`FitState.error`); nothing else changed.
 
 One coordinator (:meth:`FitState._flush`) turns raw trait changes into one processed update:
 it refits only when the spec changed, recomputes the log-likelihood cheaply on threshold
 edits, then bumps ``updates`` once.  :meth:`FitState.batch` merges several edits into one
 update.  The model is ``P(Y <= j | x) = F(theta_j - x'beta)``: a positive effect moves
-probability towards higher categories.
+probability towards higher categories.  With random intercepts
+(:attr:`FitState.random_intercepts`) it is ``F(theta_j - x'beta - u_g)``; which
+probabilities the panels show (population-averaged, a typical group, the picked group) is
+:attr:`FitState.group_kind`, always computed by the core's random-intercept result.
 """
 from __future__ import annotations
 
@@ -30,21 +34,23 @@ import traitlets as tl
 from .core import FitResult, OrdinalDataError, fit as core_fit, link_names
 from .core.arguments import STATE_OPTION_RULES, check_keys
 from .core.effects import probabilities_at
-from . import _spec
+from . import _groups, _spec
 from ._jobs import JobRunner
 from ._loglik import RowLoglik
 from .core.layout import cumulative_predictors, location_predictor
+from .core.mixed_results import GROUP_KINDS
 
 __all__ = ["FitState", "CHANGE_KINDS", "ThresholdEditError", "unusable"]
 
-CHANGE_KINDS = ("fit", "thresholds", "scenario", "focus", "residuals", "selection", "link_table", "error")
+CHANGE_KINDS = ("fit", "thresholds", "scenario", "focus", "residuals", "selection", "link_table", "group", "error")
 _KIND_OF = {
     "data": "spec", "formula": "spec", "link": "spec", "options": "spec", "dropped": "spec",
     "nonparallel": "spec", "scale_by": "spec", "thresholds": "thresholds", "scenario": "scenario",
     "baseline": "scenario", "focus": "focus", "residual_draws": "residuals",
     "residual_seed": "residuals", "selection": "selection", "link_table": "link_table",
+    "random_intercepts": "spec", "group_column": "group", "group": "group", "group_kind": "group",
 }
-_SPEC = ("data", "formula", "link", "options", "dropped", "nonparallel", "scale_by")
+_SPEC = ("data", "formula", "link", "options", "dropped", "nonparallel", "scale_by", "random_intercepts")
 
 
 class FitState(tl.HasTraits):
@@ -52,16 +58,32 @@ class FitState(tl.HasTraits):
 
     Build it with :meth:`from_fit` or ``FitState(data=df, formula="y ~ x", link="logit")``.
     Refits happen only when :attr:`data`, :attr:`formula`, :attr:`options`, :attr:`dropped`,
-    :attr:`nonparallel`, :attr:`scale_by` or :attr:`link` change.
+    :attr:`nonparallel`, :attr:`scale_by`, :attr:`random_intercepts` or :attr:`link` change.
+    Every refit passes all of them to ``ow.fit`` (:meth:`fit_kwargs`), so a link change or a
+    dropped predictor keeps the random part, the cluster column and the weight kind.
     """
 
     data = tl.Instance(pd.DataFrame, allow_none=True, help="The data frame the model is fitted on.")
     formula = tl.Unicode("", help="Full model formula 'response ~ predictors' (Wilkinson notation).")
     link = tl.Enum(list(link_names()), default_value="logit", help="Link; setting it refits.")
-    options = tl.Dict(help="Fit options passed through to ow.fit: 'weights' (column) and 'levels'.")
+    options = tl.Dict(help="Fit options passed through to ow.fit: 'weights' (column), 'levels', 'quadrature' "
+                           "(points per group of a random-intercept fit), 'cluster' (column: cluster-robust "
+                           "covariance) and 'weight_kind' ('frequency' or 'sampling').")
     dropped = tl.Tuple(help="Predictors left out of the model (model controls: 'out').")
     nonparallel = tl.Tuple(help="Predictors with a separate effect per threshold (non-parallel).")
     scale_by = tl.Tuple(help="Predictors with a scale effect on the latent spread.")
+    random_intercepts = tl.Tuple(help="Grouping columns with a normal random intercept each (Hedeker & Gibbons "
+                                      "1994); setting it refits.  The model controls switch each on and off.")
+    group_candidates = tl.Tuple(help="Grouping columns the model controls offer to switch on and off: those "
+                                     "given here and every column of random_intercepts.")
+    group_column = tl.Unicode("", help="Grouping column of the picked group (the fit's first by default; '' "
+                                       "without random intercepts).")
+    group = tl.Any(None, allow_none=True, help="The picked group: a label of group_column seen in the fit, or "
+                                               "None.  Set by the group-effects panel.")
+    group_kind = tl.Enum(GROUP_KINDS, default_value="population",
+                         help="Probabilities shown for a random-intercept fit: 'population' (averaged over the "
+                              "groups), 'typical' (group effect 0) or 'conditional' (the picked group at its "
+                              "estimated effect).  Set by the explorer.")
     fit = tl.Instance(FitResult, allow_none=True, help="Maximum-likelihood fit of the current spec.")
     thresholds = tl.Tuple(help="Thresholds shown (strictly increasing); the fitted ones until edited.")
     loglik = tl.Float(np.nan, help="Log-likelihood at the shown thresholds with the fitted effects.")
@@ -98,10 +120,10 @@ class FitState(tl.HasTraits):
             data = getattr(res.training, "frame", None) if res.training is not None else None
         if data is None:
             raise ValueError("from_fit needs data=: this result does not hold its data frame")
-        _refuse_unsupported_fit(res)
-        opts = {k: v for k, v in dict(res.options).items() if k in ("weights", "levels") and v is not None}
+        opts = _groups.options_of(res)
         extra = {k: tuple(res.options.get(k) or ()) for k in ("nonparallel", "scale_by")}
-        return cls(data=data, formula=res.formula, link=res.link.name, options=opts, fit=res, **extra, **kwargs)
+        return cls(data=data, formula=res.formula, link=res.link.name, options=opts, fit=res,
+                   random_intercepts=_groups.grouping_of(res), **extra, **kwargs)
 
     # ---- derived, read-only views ----------------------------------------------------------------
     @property
@@ -244,8 +266,50 @@ class FitState(tl.HasTraits):
         say so (:meth:`crossings`) instead of drawing clipped values.
         """
         res = self.fit
+        if self.grouping:
+            return res.probabilities_of(self.design_of(frame), thresholds=self.theta, groups=self.group_kind,
+                                        offset=self.group_offset)
         params = np.concatenate([self.theta, res.params[res.n_thresholds:]])
         return probabilities_at(res, self.design_of(frame), params, warn=False)
+
+    # ---- random intercepts -------------------------------------------------------------------------
+    @property
+    def grouping(self) -> tuple:
+        """Grouping columns of the current fit (``()`` unless it has random intercepts)."""
+        return _groups.grouping_of(self.fit)
+
+    @property
+    def group_offset(self) -> float:
+        """Latent shift of the probabilities shown: the picked group's estimated effect (its
+        conditional mode, ``group_effects``) when :attr:`group_kind` is ``"conditional"``, else 0."""
+        if self.group_kind != "conditional" or self.group is None:
+            return 0.0
+        return float(self.group_effects(self.group_column).loc[self.group, "estimate"])
+
+    def group_effects(self, column=None):
+        """The core's ``group_effects(column)`` of the current fit (kept until the next refit)."""
+        column = column or self.group_column
+        key = ("group effects", column)
+        if key not in self._frames:
+            self._frames[key] = self.fit.group_effects(column)
+        return self._frames[key]
+
+    def group_rows(self) -> np.ndarray:
+        """Positions of the fitted rows of the picked group (empty when none is picked)."""
+        if self.group is None or not self.grouping:
+            return np.zeros(0, dtype=np.int64)
+        return _groups.group_rows(self.fit, self.group_column, self.group)
+
+    def kind_text(self) -> str:
+        """Plain words for the probabilities shown ("" for a fit without random intercepts)."""
+        if not self.grouping:
+            return ""
+        return _groups.kind_text(self.group_kind, self.group_column, self.group, several=len(self.grouping) > 1)
+
+    def fit_kwargs(self) -> dict:
+        """Keyword arguments of ``ow.fit`` (besides formula, data, link) for the current spec."""
+        return _groups.fit_kwargs(self.options, _spec.model_kwargs(self.nonparallel, self.scale_by, self.included),
+                                  self.random_intercepts)
 
     def crossings(self, frame) -> list:
         """Per row of ``frame``: the ``(lower cut, upper cut)`` name pairs that cross (``[]`` if none)."""
@@ -294,6 +358,39 @@ class FitState(tl.HasTraits):
         if rows.size and (rows[0] < 0 or rows[-1] >= n):
             raise tl.TraitError(f"selection holds row positions outside 0..{n - 1}")
         return tuple(int(r) for r in rows)
+
+    @tl.validate("random_intercepts", "group_candidates")
+    def _valid_grouping(self, proposal):
+        names = tuple(dict.fromkeys(proposal["value"]))
+        bad = [v for v in names if not isinstance(v, str) or (self.data is not None and v not in self.data.columns)]
+        if bad:
+            raise tl.TraitError(f"grouping columns must be columns of the data, got {bad}")
+        return names
+
+    @tl.validate("group_column")
+    def _valid_group_column(self, proposal):
+        name = proposal["value"]
+        if name and self.fit is not None and name not in self.grouping:
+            raise tl.TraitError(f"group_column must be a grouping column of the fit {list(self.grouping)}, got {name!r}")
+        return name
+
+    @tl.validate("group")
+    def _valid_group(self, proposal):
+        if proposal["value"] is None or self.fit is None:
+            return proposal["value"]
+        try:
+            return _groups.group_label(self.fit, self.group_column, proposal["value"])
+        except ValueError as exc:
+            raise tl.TraitError(str(exc)) from None
+
+    @tl.validate("group_kind")
+    def _valid_group_kind(self, proposal):
+        kind = proposal["value"]
+        if self.fit is not None and kind != "population" and not self.grouping:
+            raise tl.TraitError(f"group_kind {kind!r} needs a fit with random intercepts")
+        if self.fit is not None and kind == "conditional" and self.group is None:
+            raise tl.TraitError("group_kind 'conditional' needs a picked group (state.group)")
+        return kind
 
     @tl.validate("dropped", "nonparallel", "scale_by")
     def _valid_names(self, proposal):
@@ -412,12 +509,9 @@ class FitState(tl.HasTraits):
         if held is not None and held.is_sample:  # refitting the sample would pass for the whole fit
             raise ValueError(f"the fit used all {self.fit.n_rows:,} rows of a Dask frame and the panels hold "
                              f"{held.describe()}; refit with ow.fit on the Dask frame")
-        kwargs = {k: v for k, v in self.options.items() if k in ("weights", "levels")}
-        kwargs.update(_spec.model_kwargs(self.nonparallel, self.scale_by, self.included))
-        return core_fit(self.model_formula, self.data, link=self.link, **kwargs)
+        return core_fit(self.model_formula, self.data, link=self.link, **self.fit_kwargs())
 
     def _install(self, res):
-        _refuse_unsupported_fit(res)
         problem = unusable(res)
         if problem:
             raise OrdinalDataError(f"cannot show this fit: {problem}")
@@ -433,7 +527,22 @@ class FitState(tl.HasTraits):
         if self.focus not in self.included:
             self.focus = self.included[0] if self.included else ""
         self.selection = tuple(r for r in self.selection if r < n_training(res))
+        self._install_groups(res)
         self._update_loglik()
+
+    def _install_groups(self, res):
+        """Grouping traits that hold for ``res``: the picked group kept while the new fit has it."""
+        groups = _groups.grouping_of(res)
+        self.random_intercepts = groups
+        self.group_candidates = tuple(dict.fromkeys(self.group_candidates + groups))
+        column = self.group_column if self.group_column in groups else (groups[0] if groups else "")
+        try:
+            group = None if self.group is None or not column else _groups.group_label(res, column, self.group)
+        except ValueError:
+            group = None
+        if self.group_kind == "conditional" and group is None or not groups:
+            self.group_kind = "population"
+        self.group, self.group_column, self.group = None, column, group
 
     def _restore_good(self, message):
         for name, value in (self._good or {}).items():
@@ -458,6 +567,8 @@ class FitState(tl.HasTraits):
 
     def _loglik_at(self, theta):
         res = self.fit
+        if self.grouping:  # the marginal likelihood, as the fitted one
+            return res.marginal_loglik_at(theta)
         if not res.layout.is_parallel:
             return res.loglik_at(thresholds=theta)
         if getattr(self, "_rows_fit", None) is not res:
@@ -533,8 +644,10 @@ class FitState(tl.HasTraits):
         self._table_key = key
         if self.link_table:
             self.link_table = []
-        spec = dict(formula=self.model_formula, data=self.data, options=dict(self.options),
-                    extra=_spec.model_kwargs(self.nonparallel, self.scale_by, self.included))
+        kwargs = self.fit_kwargs()
+        spec = dict(formula=self.model_formula, data=self.data,
+                    options={k: v for k, v in kwargs.items() if k in _groups.FIT_OPTIONS},
+                    extra={k: v for k, v in kwargs.items() if k not in _groups.FIT_OPTIONS})
         self.run_long("comparing links", lambda: _spec.link_rows(**spec), self._set_link_table,
                       kind="link_table", wanted=lambda: self._spec_key() == key, stopped=self._link_table_stopped)
 
@@ -547,7 +660,8 @@ class FitState(tl.HasTraits):
         self.link_table = rows if isinstance(rows, list) else [{"link": "", "error": str(rows)}]
 
     def _spec_key(self):
-        return (id(self.data), self.model_formula, repr(sorted(self.options.items())), self.nonparallel, self.scale_by)
+        return (id(self.data), self.model_formula, repr(sorted(self.options.items())), self.nonparallel, self.scale_by,
+                self.random_intercepts)
 
     # ---- files -------------------------------------------------------------------------------------------
     #: Function ``(state, name, **options) -> Figure`` behind :meth:`figure`; installed by
@@ -631,25 +745,4 @@ def _fitted_rows(res, data):
 def n_training(res) -> int:
     """Rows the fit holds for residuals and edited log-likelihoods (a sample for Dask fits)."""
     return res.n_training
-
-
-def _refuse_unsupported_fit(res):
-    """Refuse fits whose random part or robust covariance the panels cannot carry yet.
-
-    The panels refit, compare links and test proportional odds with the plain model; shown
-    around a random-intercept fit or a cluster/sampling covariance they would present numbers
-    of another model (model-based standard errors, no random part) as if they were this fit's.
-    """
-    groups = list(dict(res.options).get("random_intercepts") or ())
-    if groups:
-        raise OrdinalDataError(
-            f"the panels do not carry random intercepts yet (grouping column(s) {', '.join(map(repr, groups))}): "
-            "their refits, link comparison and proportional-odds tests would use the plain model; "
-            "work with the result in code (res.group_effects, res.predict(groups=...)) or show the plain fit")
-    kind = getattr(res, "covariance_type", "model")
-    if kind != "model":
-        what = f"clustered by {res.options.get('cluster')!r}" if kind == "cluster" else "from sampling weights"
-        raise OrdinalDataError(
-            f"the panels do not carry a {kind} (sandwich) covariance yet ({what}): their tests and intervals "
-            "would use model-based standard errors; show the fit with the default covariance instead")
 

@@ -2,8 +2,8 @@
 
 Column names that need quoting in a formula (spaces, '-', quotes, '<', dots, integers) work in
 the state and the dashboard as in ``ow.fit``: the panels' curves equal the core's ``predict``
-on the same rows, and dropping a predictor refits the model without it.  Fits the panels cannot
-carry yet (random intercepts, sandwich covariances) are refused with the column named."""
+on the same rows, and dropping a predictor refits the model without it.  Random-intercept and sandwich-covariance
+fits are carried by the state: tests/test_state_groups.py."""
 import html
 import warnings
 
@@ -96,29 +96,3 @@ def test_factor_wrapped_in_C_is_categorical_with_a_quoted_name():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         assert _spec.is_categorical(df["pit-area"], "pit-area", "grade ~ C(`pit-area`)")
-
-
-# ---- fits the panels cannot carry yet are refused, not shown with another model's numbers ----
-
-def test_dashboard_refuses_a_random_intercept_fit_naming_the_grouping_column():
-    from ordwidgets.demo import inspected_trees
-
-    df = inspected_trees(n=300, seed=4)
-    res = ow.fit("grade ~ diameter", df, random_intercepts=["inspector"], quadrature=3)
-    with pytest.raises(ow.OrdinalDataError, match="random intercepts yet.*'inspector'"):
-        ow.dashboard(res, background=False)
-    with pytest.raises(ow.OrdinalDataError, match="random intercepts yet"):
-        ow.FitState.from_fit(res)
-
-
-def test_state_refuses_a_cluster_robust_fit_naming_the_cluster_column():
-    from ordwidgets.demo import inspected_trees
-
-    df = inspected_trees(n=300, seed=4)
-    res = ow.fit("grade ~ diameter", df, cluster="inspector")
-    assert res.covariance_type == "cluster"
-    with pytest.raises(ow.OrdinalDataError, match="clustered by 'inspector'"):
-        ow.FitState.from_fit(res)
-    # the same model with the default covariance is shown as before
-    state = ow.FitState.from_fit(ow.fit("grade ~ diameter", df))
-    np.testing.assert_allclose(state.fit.params, res.params, rtol=0, atol=1e-12)  # same point estimates

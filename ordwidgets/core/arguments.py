@@ -134,6 +134,9 @@ PREDICT_RULES = {
 STATE_OPTION_RULES = {
     "weights": optional(VECTOR),
     "levels": optional(SEQUENCE),
+    "quadrature": optional(integer(1, 1000)),
+    "cluster": optional(Rule("a column name", lambda v: isinstance(v, str))),
+    "weight_kind": one_of("frequency", "sampling"),
 }
 
 

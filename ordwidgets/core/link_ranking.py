@@ -52,27 +52,39 @@ def _from_result(res):
     weights = opts.get("weights")
     if weights is not None and not isinstance(weights, str):
         weights = tr.weights  # an array given to the fit: its entries for the rows kept
+    groups = list(getattr(res, "groups", ()) or ()) or None
+    cluster = opts.get("cluster") if opts.get("covariance_type") == "cluster" else None
+    if opts.get("covariance_type") == "cluster" and not isinstance(cluster, str):
+        raise ValueError("this fit's clusters were given as an array; pass the formula, data and cluster= "
+                         "to compare links")
     return res.formula, tr.frame, {"weights": weights, "levels": opts.get("levels"),
                                    "nonparallel": opts.get("nonparallel") or None,
-                                   "scale_by": opts.get("scale_by") or None}
+                                   "scale_by": opts.get("scale_by") or None, "random_intercepts": groups,
+                                   "quadrature": opts.get("quadrature") if groups else None, "cluster": cluster,
+                                   "weight_kind": opts.get("weight_kind") or "frequency"}
 
 
 def compare_links(model, data=None, *, link=None, weights=None, levels=None, nonparallel=None,
-                  scale_by=None, max_iter=100):
+                  scale_by=None, random_intercepts=None, quadrature=None, cluster=None, weight_kind="frequency",
+                  max_iter=100):
     """Fit the same model with several links and rank them.
 
     Parameters
     ----------
     model : str or FitResult
         A formula (then ``data`` is needed), or a fit whose formula, rows, weights, levels,
-        per-threshold and scale effects are used (the other options are then not allowed).
+        per-threshold and scale effects, random intercepts (grouping columns and quadrature
+        points) and covariance (cluster column, weight kind) are used (the other options are
+        then not allowed).
         The fit's own link is not refitted.
     data : pandas.DataFrame, optional
         With a formula.
     link : str or sequence of str, optional
         Links to compare (default: all of :func:`~ordwidgets.core.links.link_names`).
-    weights, levels, nonparallel, scale_by, max_iter
-        Passed to :func:`~ordwidgets.core.fitting.fit` for every link.
+    weights, levels, nonparallel, scale_by, random_intercepts, quadrature, cluster, weight_kind, max_iter
+        Passed to :func:`~ordwidgets.core.fitting.fit` for every link: a random-intercept
+        model is fitted with the same random part under each link (the log-likelihoods
+        compared are then the marginal ones).
 
     Returns
     -------
@@ -91,9 +103,12 @@ def compare_links(model, data=None, *, link=None, weights=None, levels=None, non
         if data is None:
             raise ValueError("compare_links(formula, data): data is needed with a formula")
         formula = model
-        kwargs = {"weights": weights, "levels": levels, "nonparallel": nonparallel, "scale_by": scale_by}
+        kwargs = {"weights": weights, "levels": levels, "nonparallel": nonparallel, "scale_by": scale_by,
+                  "random_intercepts": random_intercepts, "quadrature": quadrature, "cluster": cluster,
+                  "weight_kind": weight_kind}
     else:
-        if data is not None or any(v is not None for v in (weights, levels, nonparallel, scale_by)):
+        if data is not None or weight_kind != "frequency" or any(
+                v is not None for v in (weights, levels, nonparallel, scale_by, random_intercepts, quadrature, cluster)):
             raise ValueError("with a fit, compare_links takes its data and options from the fit")
         own = model
         formula, data, kwargs = _from_result(model)

@@ -198,6 +198,54 @@ class RandomInterceptFit(FitResult):
         parts = pd.MultiIndex.from_product([["estimate", "lower", "upper"], cols], names=["part", "level"])
         return pd.DataFrame(np.hstack([est, lower, upper]), index=index, columns=parts)
 
+    def probabilities_of(self, X, *, thresholds=None, groups="population", offset=None) -> np.ndarray:
+        """Category probabilities ``(n, J)`` of design rows ``X`` (the columns of :meth:`design`).
+
+        The computation behind :meth:`predict`, for callers that hold the design already
+        (the widget state caches it).  ``thresholds`` replace the fitted ones (an edit);
+        ``offset`` is each row's group effect on the latent scale (``groups="conditional"``:
+        for example an estimate from :meth:`group_effects`; default 0).
+        """
+        if groups not in GROUP_KINDS:
+            raise OrdinalDataError(f"groups must be 'population', 'typical' or 'conditional', got {groups!r}")
+        X = np.asarray(X, float)
+        full = np.concatenate([self.params, self.sds])
+        if thresholds is not None:
+            full[: self.n_thresholds] = np.asarray(thresholds, float)
+        shift = np.zeros(len(X)) if offset is None or groups != "conditional" else np.broadcast_to(offset, len(X))
+        return self._probabilities(full, X, np.asarray(shift, float), groups)
+
+    def marginal_loglik_at(self, thresholds) -> float:
+        """Marginal log-likelihood (integrated over the random intercepts) at other thresholds.
+
+        Effects and SDs stay at the fit.  The fit's likelihood works on standardised columns,
+        where the thresholds differ from the user's by the same constant (``mean' beta``),
+        so an edit moves them by the same amounts.  ``loglik_at`` is the conditional one.
+        """
+        theta = np.asarray(thresholds, float)
+        if theta.shape != (self.n_thresholds,):
+            raise OrdinalDataError(f"{self.n_thresholds} thresholds expected, got {theta.size}")
+        if self.likelihood is None:
+            raise OrdinalDataError("this result does not hold its likelihood (fit with keep_data=True)")
+        internal = np.array(self.internal_params, float)
+        internal[: self.n_thresholds] += theta - self.params[: self.n_thresholds]
+        return float(self.likelihood.sums(self.link, internal, order=0)[0])
+
+    def latent_density(self, t, eta, *, groups="population", offset=0.0) -> np.ndarray:
+        """Density at ``t`` of the latent ``y* = x'beta + u + error`` of a row with ``x'beta = eta``.
+
+        ``"typical"``: the link density at ``t - eta``; ``"conditional"``: shifted by the
+        group effect ``offset``; ``"population"``: averaged over ``u ~ N(0, sigma^2)`` with
+        the quadrature :meth:`predict` uses, so its areas between the thresholds are the
+        population-averaged probabilities.
+        """
+        t = np.asarray(t, float)
+        if groups != "population":
+            return self.link.pdf(t - eta - (offset if groups == "conditional" else 0.0))
+        nodes, w = hermegauss(_POPULATION_POINTS)
+        total = float(np.sqrt(np.sum(self.sds ** 2)))
+        return sum(wk * self.link.pdf(t - eta - total * tk) for tk, wk in zip(nodes, w / w.sum()))
+
     def _probabilities(self, full, X, offset, groups):
         m = self.n_thresholds
         theta, beta, sd = full[:m], full[m:len(self.params)], full[len(self.params):]

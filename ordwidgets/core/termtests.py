@@ -109,10 +109,14 @@ def term_tests(res, *, likelihood_ratio=True) -> pd.DataFrame:
         ``wald_statistic``, ``wald_p_value``, ``note``.
     """
     cols, params = term_columns(res), term_parameters(res)
+    # the refit without a term is a plain fit: against a marginal (random-intercept) loglik it
+    # would credit the random part to the term
+    mixed = ("no likelihood-ratio refit for random-intercept fits yet: Wald only"
+             if likelihood_ratio and getattr(res, "groups", ()) else "")
     rows = {}
     for term, names in params.items():
         df = len(names)
-        lr = _lr(res, cols[term], df) if likelihood_ratio else (np.nan, np.nan, "")
+        lr = _lr(res, cols[term], df) if likelihood_ratio and not mixed else (np.nan, np.nan, mixed)
         wald = _wald(res, names)
         rows[term] = {"columns": ", ".join(cols[term]), "df": df, "lr_statistic": lr[0], "lr_p_value": lr[1],
                       "wald_statistic": wald[0], "wald_p_value": wald[1], "note": lr[2]}

@@ -9,7 +9,7 @@ from .._spec import grid_values
 from ._common import (PanelBase, category_colours, esc, figure_toolbar, fmt, html_table, is_echo, level_legend,
                       make_figure, rule_xy)
 
-__all__ = ["ProbabilityExplorer", "expected_score", "interval_bands"]
+__all__ = ["ProbabilityExplorer", "expected_score", "interval_bands", "KIND_LABELS"]
 
 
 def expected_score(probs):
@@ -18,13 +18,18 @@ def expected_score(probs):
     return probs @ np.arange(1, probs.shape[1] + 1)
 
 
-def interval_bands(res, frame, level=0.95):
+#: Labels of the kinds of probability (``FitState.group_kind``) on the explorer's chooser.
+KIND_LABELS = (("population-averaged", "population"), ("typical group", "typical"), ("this group", "conditional"))
+
+
+def interval_bands(res, frame, level=0.95, **groups):
     """Lower and upper interval bounds of the category probabilities.
 
-    From ``res.predict(frame, kind="probabilities", level=level)`` (delta method on the logit
-    scale); the bounds are only drawn at the fitted thresholds.
+    From ``res.predict(frame, kind="probabilities", level=level, **groups)`` (delta method on
+    the logit scale; ``groups=`` for a random-intercept fit); the bounds are only drawn at the
+    fitted thresholds.
     """
-    out = res.predict(frame, kind="probabilities", level=level)
+    out = res.predict(frame, kind="probabilities", level=level, **groups)
     return out["lower"].to_numpy(float), out["upper"].to_numpy(float)
 
 
@@ -60,10 +65,11 @@ class ProbabilityExplorer(PanelBase):
     """
 
     _dispatch = {
-        "fit": ("_update_focus", "_update_editors", "_update_curves", "_update_whatif"),
+        "fit": ("_update_focus", "_update_kind", "_update_editors", "_update_curves", "_update_whatif"),
         "thresholds": ("_update_curves", "_update_whatif"),
         "scenario": ("_update_editors", "_update_curves", "_update_whatif"),
         "focus": ("_update_focus", "_update_curves"),
+        "group": ("_update_kind", "_update_curves", "_update_whatif"),
     }
 
     def __init__(self, state, **kwargs):
@@ -79,12 +85,19 @@ class ProbabilityExplorer(PanelBase):
         self.target.observe(lambda _: self._update_editors(), names="value")
         self.copy_button = self.own(w.Button(description="baseline = scenario"))
         self.copy_button.on_click(lambda _: setattr(self.state, "baseline", dict(self.state.scenario)))
+        self.kind = self.own(w.ToggleButtons(options=list(KIND_LABELS), value="population",
+                                             tooltips=["averaged over the groups", "group effect 0",
+                                                       "the group picked in the group-effects panel"]))
+        self.kind.add_class("ow-kind-choice")
+        self.kind.observe(self._kind_chosen, names="value")
+        self.kind_note = self.own(w.HTML())
+        self.kind_note.add_class("ow-kind-note")
         self.editor_box, self.whatif, self.note, self.legend = self.own(w.VBox(), w.HTML(), w.HTML(), w.HTML())
         self.whatif.add_class("ow-whatif-table")
         self.caution = self.own(w.HTML())
         self.caution.add_class("ow-scenario-note")
         self._build_figure()
-        self.children = [self.make_heading(), w.HBox([self.focus_dropdown, self.view]),
+        self.children = [self.make_heading(), w.HBox([self.focus_dropdown, self.view]), self.kind, self.kind_note,
                          self.figure, self.legend, figure_toolbar(self.figure, "probabilities"), self.note, self.caution,
                          w.HBox([self.target, self.copy_button]), self.editor_box, self.whatif]
         self.redraw_all()
@@ -136,6 +149,37 @@ class ProbabilityExplorer(PanelBase):
             positions, values, categorical = self.grid()
             self._cache = (key, (positions, values, categorical, st.scenario_frame(focus_values=values)))
         return self._cache[1]
+
+    # ---- kind of probability (random-intercept fits) ------------------------------------------------------
+    def _kind_chosen(self, change):
+        if self._syncing:
+            return
+        st = self.state
+        if change["new"] == "conditional" and st.group is None:
+            self.kind_note.value = ("<span style='color:#b3261e'>pick a group first (click it in the group-effects "
+                                    "panel or choose it there)</span>")
+            with self._guard():
+                self.kind.value = st.group_kind
+            return
+        st.group_kind = change["new"]
+
+    def _update_kind(self):
+        st = self.state
+        self.kind.layout.display = "" if st.grouping else "none"
+        with self._guard():
+            self.kind.value = st.group_kind
+        text = st.kind_text()
+        self.kind_note.value = (f"<div style='font-size:90%'><b>Shown:</b> {esc(text)}. Population-averaged and "
+                                "group probabilities differ; say which one you report.</div>" if text else "")
+
+    def _group_kwargs(self, frame):
+        """``predict`` arguments and rows for the kind shown (the picked group's column added)."""
+        st = self.state
+        if not st.grouping:
+            return frame, {}
+        if st.group_kind == "conditional":
+            frame = frame.assign(**{st.group_column: [st.group] * len(frame)})
+        return frame, {"groups": st.group_kind}
 
     # ---- curves ---------------------------------------------------------------------------------------
     def _update_curves(self):
@@ -189,8 +233,12 @@ class ProbabilityExplorer(PanelBase):
         if self.state.edited:
             self.note.value = "<i>interval bands are drawn at the fitted thresholds only (thresholds edited)</i>"
             return None
+        if len(self.state.grouping) > 1 and self.state.group_kind == "conditional":
+            self.note.value = "<i>no interval bands for one group of several grouping columns</i>"
+            return None
+        rows, kwargs = self._group_kwargs(frame)
         try:
-            bands = interval_bands(self.state.fit, frame)
+            bands = interval_bands(self.state.fit, rows, **kwargs)
         except Exception as exc:  # noqa: BLE001 - shown as a note, never breaks the panel
             self.note.value = f"<i>intervals failed: {esc(exc)}</i>"
             return None
@@ -270,7 +318,7 @@ class ProbabilityExplorer(PanelBase):
     def whatif_intervals(self):
         """Scenario - baseline with 95% delta-method intervals (core), or None when thresholds are edited."""
         st = self.state
-        if st.edited:
+        if st.edited or st.grouping and st.group_kind != "typical":
             return None
         try:
             return st.fit.probability_difference(st.scenario_frame("scenario"), st.scenario_frame("baseline"))
@@ -281,7 +329,9 @@ class ProbabilityExplorer(PanelBase):
         """The rows with a "95% interval" cell each, and the note saying where the intervals hold."""
         diff = None if refused else self.whatif_intervals()
         note = " Intervals: 95% delta method, at the fitted thresholds only." if diff is not None else \
-            " No intervals while the thresholds are edited." if self.state.edited else ""
+            " No intervals while the thresholds are edited." if self.state.edited else \
+            (" No intervals: the core gives intervals of a difference for a typical group only (choose "
+             "'typical group')." if self.state.grouping else "")
         return [row + [c] for row, c in zip(rows, _interval_cells(diff, len(rows)))], note
 
     def _update_whatif(self):
@@ -298,7 +348,8 @@ class ProbabilityExplorer(PanelBase):
                           f"probabilities cross ({esc(why)}); the model gives none there (shown as -)</div>"
                           for which, why in zip(refused, crossed))
         rows, note = self._with_intervals(rows, refused)
-        self.whatif.value = (f"<b>What if</b> (scenario: {esc(what)})" + refusal
+        kind = f"<div style='font-size:85%'>{esc(self.state.kind_text())}</div>" if self.state.grouping else ""
+        self.whatif.value = (f"<b>What if</b> (scenario: {esc(what)})" + kind + refusal
                              + html_table(["level", "baseline", "scenario", "difference", "95% interval"], rows)
                              + "<div style='font-size:85%;color:#555'>Differences are associations, not "
                                f"effects of changing a person's values.{note}</div>")

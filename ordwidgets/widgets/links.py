@@ -5,6 +5,7 @@ import ipywidgets as w
 import numpy as np
 
 from ..core import SIGN_CONVENTION, link_names
+from ..core.summary import covariance_fact
 from ._common import PanelBase, esc, fmt, html_table
 
 __all__ = ["LinkSelector", "po_test_rows", "po_verdict", "po_figures_html", "SLIGHT_CHANGE"]
@@ -113,12 +114,14 @@ class LinkSelector(PanelBase):
         self.message, self.po_overall, self.effects = self.own(w.HTML(), w.HTML(), w.HTML())
         self.po_overall.layout.margin = "0 0 0 16px"  # under the same column headers as the predictors
         self.effects.add_class("ow-effects-table")
-        self._rows, self._po = {}, {}
+        self.grouping = self.own(w.HBox())
+        self.grouping.add_class("ow-grouping-controls")
+        self._rows, self._po, self._groups = {}, {}, {}
         self.children = [self.make_heading(), self.dropdown, self.table,
                          w.HTML("<b>Predictors</b> (in model &middot; non-parallel &middot; scale effect "
                                 "&middot; proportional-odds test)"),
                          w.HTML(po_header_html(), layout=w.Layout(margin="0 0 0 16px")), self.controls, self.po_overall,
-                         self.message, self.effects]
+                         self.grouping, self.message, self.effects]
         self.redraw_all()
 
     def title(self) -> str:
@@ -137,6 +140,11 @@ class LinkSelector(PanelBase):
     def _request_tables(self):
         self.state.request_link_table()
         self._po = {}
+        if self.state.grouping:  # the core has no such test for these fits: say so, never another model's
+            self._set_po({"": "proportional-odds tests: not available for random-intercept fits (the core does "
+                              "not compute them yet)"})
+            self._update_table()
+            return
         self.state.run_long("testing proportional odds", lambda res=self.state.fit: po_test_rows(res),
                             self._set_po, kind=("proportional odds", id(self)),
                             wanted=lambda fit=self.state.fit: self.state.fit is fit and not self.closed,
@@ -154,9 +162,12 @@ class LinkSelector(PanelBase):
             return
         cells = [[("\u25b6 " if r["link"] == self.state.link else "") + r["link"], fmt(r.get("loglik"), 8),
                   fmt(r.get("aic"), 8), fmt(r.get("bic"), 8), r.get("error", "")[:80]] for r in rows]
+        groups = self.state.grouping
+        same = (f", each with a random intercept per {', '.join(map(str, groups))} (marginal log-likelihoods)"
+                if groups else "")
         self.table.value = (html_table(["link", "loglik", "AIC", "BIC", "note"], cells)
                             + f"<div style='font-size:85%;color:#555'>every link fitted "
-                              f"{esc(self.state.fit.weighting)}</div>" + self._sample_note())
+                              f"{esc(self.state.fit.weighting)}{esc(same)}</div>" + self._sample_note())
 
     def _sample_note(self):
         res = self.state.fit
@@ -169,8 +180,9 @@ class LinkSelector(PanelBase):
         table = self.state.fit.table()
         rows = [[name, fmt(r["estimate"], 4), fmt(r["std_error"], 3), fmt(r["p_value"], 3)]
                 for name, r in table.loc[list(self.state.fit.coef_names)].iterrows()]
+        errors = "".join(f"; std. errors: {v}" for v in covariance_fact(self.state.fit).values())
         self.effects.value = (f"<b>Effects</b> (positive = towards higher categories; fit "
-                              f"{esc(self.state.fit.weighting)})"
+                              f"{esc(self.state.fit.weighting)}{esc(errors)})"
                               + html_table(["effect", "estimate", "SE", "p-value"], rows)
                               + f"<div style='font-size:85%;color:#555'>{esc(SIGN_CONVENTION)}</div>")
 
@@ -184,7 +196,27 @@ class LinkSelector(PanelBase):
                 inc.value = name not in self.state.dropped
                 nonpar.value, scale.value = name in self.state.nonparallel, name in self.state.scale_by
                 nonpar.disabled = scale.disabled = not inc.value
+        self._update_grouping()
         self._update_po()
+
+    def _update_grouping(self):
+        """One "random intercept" box per candidate grouping column (none: nothing shown)."""
+        names = list(self.state.group_candidates)
+        if list(self._groups) != names:
+            for box in self._groups.values():
+                box.close()
+            self._groups = {n: w.Checkbox(description=f"random intercept per {n}", indent=False,
+                                          layout=w.Layout(width="auto", margin="0 10px 0 0")) for n in names}
+            for box in self._groups.values():
+                box.observe(self._grouping_changed, names="value")
+            self.grouping.children = list(self._groups.values())
+        with self._guard():
+            for name, box in self._groups.items():
+                box.value = name in self.state.random_intercepts
+
+    def _grouping_changed(self, change):
+        if not self._syncing:
+            self.state.random_intercepts = tuple(n for n, box in self._groups.items() if box.value)
 
     def _make_rows(self, names):
         for widgets in self._rows.values():

@@ -86,6 +86,7 @@ class ResidualPanel(PanelBase):
         "thresholds": ("_update_residuals",),
         "residuals": ("_update_residuals",),
         "selection": ("_update_selection",),
+        "group": ("_update_group",),
     }
 
     def __init__(self, state, **kwargs):
@@ -99,12 +100,13 @@ class ResidualPanel(PanelBase):
         self.draws = self.own(w.BoundedIntText(value=state.residual_draws, min=1, max=50,
                                                description="draws", layout=w.Layout(width="160px")))
         self.draws.observe(lambda c: self._set_trait("residual_draws", c["new"]), names="value")
-        self.count, self.summary, self.table = self.own(w.HTML(), w.HTML(), w.HTML())
+        self.count, self.summary, self.table, self.group_note = self.own(w.HTML(), w.HTML(), w.HTML(), w.HTML())
+        self.group_note.add_class("ow-group-rows-note")
         self.table.add_class("ow-selection-table")
         self._build_scatter()
         self._build_qq()
         self.children = [self.make_heading(), w.HBox([self.x_choice, self.draws, self.seed]),
-                         self.count, w.HBox([w.VBox([self.figure, figure_toolbar(self.figure, "residuals")],
+                         self.count, self.group_note, w.HBox([w.VBox([self.figure, figure_toolbar(self.figure, "residuals")],
                                                     layout=w.Layout(width="60%")),
                                              w.VBox([self.qq_figure, figure_toolbar(self.qq_figure, "qq")],
                                                     layout=w.Layout(width="40%"))]),
@@ -123,15 +125,17 @@ class ResidualPanel(PanelBase):
         self.band = bq.Lines(x=[0.0, 1.0], y=[[0.0, 0.0], [0.0, 0.0]], scales=sc, fill="between",
                              fill_colors=["#f2a93b", None], fill_opacities=[0.3, 0.0], stroke_width=0)
         self.trend = bq.Lines(x=[0.0, 1.0], y=[0.0, 0.0], scales=sc, colors=["#c84b31"], stroke_width=3)
+        self.group_points = bq.Scatter(x=[0.0], y=[0.0], scales=sc, default_size=14, colors=["#111111"],
+                                       stroke="#f2a93b", opacities=[0.9], visible=False)
         self.zero = bq.Lines(x=[0.0, 1.0], y=[0.0, 0.0], scales=sc, colors=["#777777"], line_style="dashed")
         self.brush = bq.interacts.BrushSelector(x_scale=xs, y_scale=ys, marks=[self.points], color="#c84b31")
         self.brush.observe(self._brushed, names="brushing")
         self.points.observe(self._brushed, names="selected")
         self.x_axis = bq.Axis(scale=xs, label=_ETA)
         axes = [self.x_axis, bq.Axis(scale=ys, side="left", label="surrogate residual")]
-        self.figure = self.own(make_figure([self.band, self.points, self.zero, self.trend], axes,
+        self.figure = self.own(make_figure([self.band, self.points, self.group_points, self.zero, self.trend], axes,
                                            "ow-residual-figure", interaction=self.brush))
-        self.own(self.points, self.band, self.trend, self.zero, self.brush, xs, ys, self.x_axis)
+        self.own(self.points, self.group_points, self.band, self.trend, self.zero, self.brush, xs, ys, self.x_axis)
 
     def _build_qq(self):
         xs, ys = bq.LinearScale(), bq.LinearScale()
@@ -223,7 +227,27 @@ class ResidualPanel(PanelBase):
             # few round ticks on a number axis: the labels stay apart at 60% of a panel's width
             self.x_axis.tick_values = np.array(list(ticks)) if ticks else nice_ticks(np.min(view.x), np.max(view.x))
             self.x_axis.tick_labels = ticks
+        self._update_group()
         self._update_summary(view)
+
+    def _update_group(self):
+        """Mark the drawn points of the picked group (random-intercept fits); say how many there are."""
+        view, st = getattr(self, "view", None), self.state
+        if view is None:
+            return
+        rows = st.group_rows()
+        drawn = np.flatnonzero(np.isin(self._shown, rows)) if rows.size else np.zeros(0, int)
+        with self.group_points.hold_sync():
+            if drawn.size:
+                picked = view.rows[drawn]
+                self.group_points.x, self.group_points.y = view.x[picked], view.residuals[picked, 0]
+            self.group_points.visible = bool(drawn.size)
+        self.group_note.value = "" if not st.grouping else (
+            "<div style='font-size:85%;color:#555'>Residuals are conditional on the estimated group effects "
+            "(each row's group at its conditional mode, as if known; Liu &amp; Zhang 2018).</div>"
+            + ("" if st.group is None else
+               f"<div style='font-size:85%'>{esc(st.group_column)} {esc(st.group)}: {rows.size:,} rows, "
+               f"{drawn.size:,} of them among the drawn points (dark, ringed)</div>"))
 
     def _update_summary(self, view):
         name, tests, methods = self.x_choice.value, view.tests, view.methods

@@ -35,6 +35,7 @@ class ThresholdPanel(PanelBase):
         "fit": ("_update_range", "_update_sliders", "_update_curve", "_update_readout"),
         "thresholds": ("_update_sliders", "_update_curve", "_update_readout"),
         "scenario": ("_update_curve",),
+        "group": ("_update_note", "_update_curve"),
     }
 
     def __init__(self, state, **kwargs):
@@ -85,10 +86,20 @@ class ThresholdPanel(PanelBase):
         self.regions.colors, self.regions.fill_colors = colours, colours
         self.regions.fill_opacities = [0.5] * len(colours)
         self.labels.colors = text_colours(colours)  # each probability in its region's hue, dark enough to read
-        extended = not self.state.fit.layout.is_parallel
-        self.note.value = ("<i>non-parallel or scale effects: the rules are the cut points at this scenario; "
-                           "the sliders move the base thresholds</i>" if extended else "")
+        self._update_note()
         self.legend.value = level_legend(self.state.fit.levels, colours)
+
+    def _update_note(self):
+        """What the density is: cut points of an extended fit; which group's latent scale."""
+        st = self.state
+        if not st.fit.layout.is_parallel:
+            self.note.value = ("<i>non-parallel or scale effects: the rules are the cut points at this scenario; "
+                               "the sliders move the base thresholds</i>")
+        elif st.grouping:
+            self.note.value = (f"<i>{esc(st.kind_text())}; the density is that of y* = x'beta + group effect + "
+                               f"error{' averaged over the groups' if st.group_kind == 'population' else ''}</i>")
+        else:
+            self.note.value = ""
 
     def _update_sliders(self):
         res = self.state.fit
@@ -135,8 +146,8 @@ class ThresholdPanel(PanelBase):
         scale effects they are ``eta + sigma * U_j`` (the effective cut points of this case).
         """
         eta, U, sigma = self.state.cuts_of(self.state.scenario_frame())
-        if self.state.fit.layout.is_parallel:
-            return float(eta[0]), 1.0, self.state.theta
+        if self.state.fit.layout.is_parallel:  # random intercepts: the picked group's effect shifts eta
+            return float(eta[0]) + self.state.group_offset, 1.0, self.state.theta
         return float(eta[0]), float(sigma[0]), eta[0] + sigma[0] * U[0]
 
     def scenario_eta(self) -> float:
@@ -144,10 +155,12 @@ class ThresholdPanel(PanelBase):
         return self.scenario_cuts()[0]
 
     def _update_curve(self):
-        link = self.state.fit.link
+        link, st = self.state.fit.link, self.state
         eta, sigma, theta = self.scenario_cuts()
 
         def density(t):
+            if st.grouping and st.group_kind == "population":  # averaged over the group effects
+                return st.fit.latent_density(t, eta)
             return link.pdf((t - eta) / sigma) / sigma
 
         cuts = np.clip(np.concatenate([[self.xs.min], theta, [self.xs.max]]), self.xs.min, self.xs.max)
@@ -184,6 +197,7 @@ class ThresholdPanel(PanelBase):
         edited = " <i>(edited)</i>" if st.edited else ""
         res = st.fit
         rows = "" if res.n_training == res.n_rows else f" (on {esc(res.training.describe())})"
+        marginal = "marginal (over the group effects) " if st.grouping else ""
         self.readout.value = (
-            f"log-likelihood at shown thresholds <b>{fmt(st.loglik, 8)}</b> &middot; fitted "
+            f"{marginal}log-likelihood at shown thresholds <b>{fmt(st.loglik, 8)}</b> &middot; fitted "
             f"{fmt(st.fitted_loglik, 8)} &middot; LR distance <b>{fmt(st.lr_distance, 4)}</b>{rows}{edited}")
