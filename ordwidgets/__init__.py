@@ -9,8 +9,8 @@ from .core import __all__ as _core_all
 from ._statefile import StateFileError
 from .report import write_report
 from .state import FitState
-from .widgets import Dashboard, LinkSelector, ProbabilityExplorer, ResidualPanel, ThresholdPanel, dashboard
+from .widgets import Dashboard, GroupEffectsPanel, LinkSelector, ProbabilityExplorer, ResidualPanel, ThresholdPanel, dashboard
 
 __version__ = "0.1.0"
-__all__ = list(_core_all) + ["FitState", "StateFileError", "ThresholdPanel", "LinkSelector",
+__all__ = list(_core_all) + ["FitState", "StateFileError", "ThresholdPanel", "LinkSelector", "GroupEffectsPanel",
                              "ProbabilityExplorer", "ResidualPanel", "Dashboard", "dashboard", "write_report"]

@@ -33,6 +33,15 @@ CSS classes (``add_class``) are stable hooks for browser tests and styling:
 ``ow-residual-figure``      residuals against the fit or a predictor (brushable)
 ``ow-qq-figure``            QQ plot against the link distribution
 ``ow-selection-table``      the brushed rows
+``ow-kind-choice``          population-averaged / typical group / this group (random intercepts)
+``ow-kind-note``            which kind of probability the explorer shows
+``ow-grouping-controls``    model controls: a random intercept per grouping column on or off
+``ow-group-rows-note``      residuals of random-intercept fits; the picked group's rows
+``ow-group-panel``          :class:`GroupEffectsPanel`
+``ow-group-figure``         sorted group effects with intervals (click a point to pick)
+``ow-group-picker``         the group picker (type or choose a label)
+``ow-group-sd``             SD of the random intercept with its profile interval
+``ow-group-note``           why there are no group effects (fit without random intercepts)
 ``ow-save-toolbar``         PNG / SVG buttons under each figure
 ``ow-save-report``          the dashboard's "save report" button
 ``ow-report-link``          where the report was saved, with a download link
@@ -40,9 +49,10 @@ CSS classes (``add_class``) are stable hooks for browser tests and styling:
 """
 from .dashboard import CAUTION, Dashboard, dashboard
 from .explorer import ProbabilityExplorer
+from .groups import GroupEffectsPanel
 from .links import LinkSelector
 from .residuals import ResidualPanel
 from .threshold import ThresholdPanel
 
-__all__ = ["ThresholdPanel", "LinkSelector", "ProbabilityExplorer", "ResidualPanel", "Dashboard",
+__all__ = ["ThresholdPanel", "LinkSelector", "ProbabilityExplorer", "ResidualPanel", "GroupEffectsPanel", "Dashboard",
            "dashboard", "CAUTION"]

@@ -1,4 +1,8 @@
-"""``dashboard``: the four panels around one state, with header, status and busy indicator."""
+"""``dashboard``: the panels around one state, with header, status and busy indicator.
+
+Four panels always; the group-effects panel too when the state has grouping columns (a fit
+with random intercepts, or candidates the model controls can switch on).
+"""
 from __future__ import annotations
 
 import base64
@@ -10,6 +14,7 @@ from ..core import SIGN_CONVENTION, FitResult
 from ..state import FitState, n_training
 from ._common import esc
 from .explorer import ProbabilityExplorer
+from .groups import GroupEffectsPanel
 from .links import LinkSelector
 from .residuals import ResidualPanel
 from .threshold import ThresholdPanel
@@ -25,7 +30,9 @@ CAUTION = ("These are associations, not causes. Check the fit (residuals, propor
 
 
 class Dashboard(w.VBox):
-    """All four panels on one :class:`FitState` (``ow-dashboard``).
+    """All panels on one :class:`FitState` (``ow-dashboard``): thresholds, link and model,
+    explorer, residuals, and the group effects (:attr:`group_panel`, ``None`` for a state
+    without grouping columns).
 
     The status widget (``ow-status``) shows ``updates: N`` and is refreshed by an observer
     registered after the panels', so it changes once every panel has redrawn.
@@ -41,6 +48,10 @@ class Dashboard(w.VBox):
         self.threshold_panel, self.link_selector = ThresholdPanel(state), LinkSelector(state)
         self.explorer, self.residual_panel = ProbabilityExplorer(state), ResidualPanel(state)
         self.panels = [self.threshold_panel, self.link_selector, self.explorer, self.residual_panel]
+        self.group_panel = None
+        if state.grouping or state.group_candidates:
+            self.group_panel = GroupEffectsPanel(state)
+            self.panels.append(self.group_panel)
         grid = w.GridBox(self.panels, layout=w.Layout(grid_template_columns="repeat(2, minmax(0, 1fr))",
                                                        grid_gap="12px 18px"))
         self.children = [self.header, w.HBox([self.status, self.busy]), grid, self._report_bar()]
@@ -113,7 +124,7 @@ def units_text(res) -> str:
 
 
 def dashboard(state_or_fit, *, data=None, background=None):
-    """Compose the four panels on one state.
+    """Compose the panels on one state (the group-effects panel for a fit with random intercepts).
 
     Parameters
     ----------
