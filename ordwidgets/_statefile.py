@@ -204,8 +204,9 @@ def _check_contents(doc, data):
     for key in _NAME_LIST_KEYS:
         if not all(isinstance(v, str) and v in columns for v in doc[key]):
             raise StateFileError(f"state file entry {key!r} must list data columns")
-    if not all(_number(v) for v in doc["thresholds"]):
-        raise StateFileError("thresholds must be finite numbers")
+    if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in doc["thresholds"]):
+        raise StateFileError("state file entry 'thresholds' must list numbers")  # the rest: the one
+        # threshold rule (check_thresholds) when the edits are applied, naming the threshold
     for key, rule in _INTEGERS.items():
         if not rule.holds(doc[key]):
             raise StateFileError(f"state file entry {key!r} must be {rule.describe}, got {doc[key]!r}")

@@ -32,7 +32,7 @@ import pandas as pd
 import traitlets as tl
 
 from .core import FitResult, OrdinalDataError, fit as core_fit, link_names
-from .core.arguments import STATE_OPTION_RULES, check_keys
+from .core.arguments import STATE_OPTION_RULES, check_keys, check_thresholds
 from .core.effects import probabilities_at
 from . import _groups, _spec
 from ._jobs import JobRunner
@@ -320,15 +320,11 @@ class FitState(tl.HasTraits):
     # ---- validation (one place) --------------------------------------------------------------------
     @tl.validate("thresholds")
     def _valid_thresholds(self, proposal):
-        values = tuple(float(v) for v in proposal["value"])
-        theta = np.asarray(values)
-        if self.fit is not None and len(values) != self.fit.n_thresholds:
-            raise tl.TraitError(f"{self.fit.n_thresholds} thresholds expected, got {len(values)}")
-        if not np.all(np.isfinite(theta)):
-            raise tl.TraitError("thresholds must be finite")
-        if np.any(np.diff(theta) <= 0):
-            raise tl.TraitError(f"thresholds must be strictly increasing, got {list(values)}")
-        return values
+        names = None if self.fit is None else self.fit.threshold_names
+        try:
+            return tuple(float(v) for v in check_thresholds(proposal["value"], names))
+        except OrdinalDataError as exc:
+            raise ThresholdEditError(str(exc)) from None
 
     @tl.validate("options")
     def _valid_options(self, proposal):
@@ -414,17 +410,13 @@ class FitState(tl.HasTraits):
         if isinstance(i, (bool, np.bool_)) or not isinstance(i, (int, np.integer)) or not 0 <= i < len(theta):
             raise ThresholdEditError(f"threshold {i!r} does not exist: this fit has thresholds 0..{len(theta) - 1} "
                                      f"({', '.join(names)})")
-        if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, float, np.number)) \
-                or not np.isfinite(value):
-            raise ThresholdEditError(f"threshold {names[i]!r} needs a finite number, got {value!r}")
-        for j, beyond in ((i - 1, value <= theta[i - 1] if i > 0 else False),
-                          (i + 1, value >= theta[i + 1] if i + 1 < len(theta) else False)):
-            if beyond:
-                raise ThresholdEditError(
-                    f"threshold {names[i]!r} cannot move to {value:.4g}: it would reach or pass {names[j]!r} "
-                    f"at {theta[j]:.4g}; thresholds keep their order, so the edit was not applied")
+        if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, float, np.number)):
+            raise ThresholdEditError(f"threshold {names[i]!r} must be a finite number, got {value!r}")
         theta[i] = float(value)
-        self.thresholds = tuple(theta)
+        try:
+            self.thresholds = tuple(theta)  # the one threshold rule (check_thresholds) decides
+        except ThresholdEditError as exc:
+            raise ThresholdEditError(f"{exc}; the edit was not applied") from None
         return theta[i]
 
     def reset_thresholds(self):
@@ -725,8 +717,10 @@ def unusable(res) -> str:
     bad = [n for n, v in zip(res.names, res.params) if not np.isfinite(v)]
     if bad:
         return f"the fit of {res.formula!r} has non-finite estimates ({', '.join(map(str, bad[:5]))})"
-    if np.any(np.diff(theta) <= 0):
-        return f"the fit of {res.formula!r} has thresholds out of order ({', '.join(f'{v:.4g}' for v in theta)})"
+    try:
+        check_thresholds(theta, res.threshold_names)
+    except OrdinalDataError as exc:
+        return f"the fit of {res.formula!r} has thresholds out of order: {exc}"
     return ""
 
 

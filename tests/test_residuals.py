@@ -156,7 +156,7 @@ def test_result_without_training_data_is_refused():
 
 
 @pytest.mark.parametrize("edited, words", [([1.0, 0.0, 2.0], "increasing"), ([0.0, 0.0, 1.0], "increasing"),
-                                           ([0.0, np.nan, 1.0], "finite"), ([0.0, 1.0], "3 values")])
+                                           ([0.0, np.nan, 1.0], "finite"), ([0.0, 1.0], "3 numbers")])
 def test_bad_edited_thresholds_are_refused(edited, words):
     res = fit_simulated("logit", n=300)
     with pytest.raises(ValueError, match=words):

@@ -20,10 +20,10 @@ from typing import Callable
 
 import numpy as np
 
-from .exceptions import ArgumentError, UnknownLinkError
+from .exceptions import ArgumentError, ThresholdError, UnknownLinkError
 from .links import LINKS, Link
 
-__all__ = ["Rule", "check_arguments", "check_keys", "check_position", "integer", "real", "one_of",
+__all__ = ["Rule", "check_arguments", "check_keys", "check_position", "check_thresholds", "integer", "real", "one_of",
            "optional", "either", "FIT_RULES", "PREDICT_RULES", "STATE_OPTION_RULES", "KINDS"]
 
 
@@ -188,3 +188,51 @@ def check_position(where, name, value, size):
 def _show(value) -> str:
     text = repr(value)
     return text if len(text) <= 60 else text[:57] + "..."
+
+
+def check_thresholds(values, names=None):
+    """The one rule of threshold values: one finite number per threshold, strictly increasing.
+
+    Every entry point that takes thresholds calls this (``FitState.thresholds`` and
+    ``set_threshold``, state files, ``FitResult.error_bounds`` / ``loglik_at`` and the
+    residuals and residual diagnostics with ``thresholds=``), so the same bad values get the
+    same message, which names the threshold by its label (``"fair->good"``).
+
+    Parameters
+    ----------
+    values : array_like
+    names : sequence of str, optional
+        The fit's threshold labels (fixes the count); without them thresholds are named by
+        position.
+
+    Returns
+    -------
+    ndarray
+        The values as a new float array.
+
+    Raises
+    ------
+    ThresholdError
+        Not numbers, not one per threshold, not finite, or not strictly increasing.
+    """
+    try:
+        theta = np.array(values)
+    except (TypeError, ValueError, OverflowError):
+        theta = None
+    numeric = theta is not None and theta.dtype.kind in "iuf" and not (
+        theta.ndim == 1 and any(isinstance(v, (bool, np.bool_)) for v in values))  # no text, no bool
+    theta = theta.astype(float) if numeric else None
+    labels = None if names is None else [str(n) for n in names]
+    count = len(theta) if labels is None and theta is not None and theta.ndim == 1 else None
+    if theta is None or theta.ndim != 1 or (labels is not None and len(theta) != len(labels)):
+        want = "numbers" if labels is None else f"{len(labels)} numbers, one per threshold ({', '.join(labels)})"
+        shown = repr(values) if len(repr(values)) <= 80 else f"{np.shape(values)}-shaped input"
+        raise ThresholdError(f"thresholds must be {want}; got {shown}")
+    labels = labels if labels is not None else [f"#{j + 1}" for j in range(count)]
+    for label, v in zip(labels, theta):
+        if not math.isfinite(v):
+            raise ThresholdError(f"threshold {label!r} must be a finite number, got {float(v)!r}")
+    for j in np.flatnonzero(np.diff(theta) <= 0)[:1]:
+        raise ThresholdError(f"threshold {labels[j + 1]!r} at {theta[j + 1]:.6g} must lie above {labels[j]!r} "
+                             f"at {theta[j]:.6g}: thresholds keep their order (strictly increasing)")
+    return theta

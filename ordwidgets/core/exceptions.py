@@ -32,6 +32,10 @@ class ArgumentError(OrdinalDataError, TypeError):
     """An argument breaks its rule (see :mod:`ordwidgets.core.arguments`); names the argument."""
 
 
+class ThresholdError(OrdinalDataError):
+    """Threshold values refused: not one finite number per threshold, or out of order."""
+
+
 class UnseenLevelError(OrdinalDataError):
     """New data hold levels of a factor (or missing values) the fit has no effect for."""
 

@@ -31,6 +31,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .arguments import check_thresholds
 from .links import get_link
 from .objective import row_terms
 
@@ -311,7 +312,7 @@ def error_bounds_of(res, thresholds=None, coefficients=None):
     """
     tr = res.training_rows()
     m = res.n_thresholds
-    theta = res.params[:m] if thresholds is None else np.asarray(thresholds, float)
+    theta = res.params[:m] if thresholds is None else check_thresholds(thresholds, res.threshold_names)
     rest = res.params[m:] if coefficients is None else np.asarray(coefficients, float)
     U, _ = cumulative_predictors(layout_of(res), np.concatenate([theta, rest]), tr.X)
     n = len(U)

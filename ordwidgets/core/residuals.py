@@ -35,6 +35,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .arguments import check_thresholds
 from .exceptions import OrdinalDataError
 from .links import get_link
 from .probabilities import interval_logprob, interval_probability
@@ -377,14 +378,7 @@ def _check_draws(draws) -> int:
 
 def _check_thresholds(res, thresholds):
     """Edited thresholds must be finite, strictly increasing and one per cut of the fit."""
-    if thresholds is None:
-        return None
-    theta = np.asarray(thresholds, dtype=float)
-    if theta.shape != (res.n_thresholds,):
-        raise ValueError(f"thresholds must hold {res.n_thresholds} values, got shape {theta.shape}")
-    if not np.all(np.isfinite(theta)) or np.any(np.diff(theta) <= 0):
-        raise ValueError(f"thresholds must be finite and strictly increasing, got {theta.tolist()}")
-    return theta
+    return None if thresholds is None else check_thresholds(thresholds, res.threshold_names)
 
 
 def _check_ordered(lower, upper):
