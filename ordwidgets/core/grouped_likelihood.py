@@ -27,9 +27,11 @@ implicit-function theorem (``dzhat/dpsi = h_zpsi / c``,
 log-probabilities (:func:`log_density_curvature`).  The Hessian returned is that of the
 quadrature with the nodes held where they are (``sum_k pi_k (H_k + s_k s_k') - sbar sbar'``
 per group); it is what Newton steps use.  With the nodes held fixed the derivatives lose
-part of the adaptive rule's accuracy, so the covariance of a fit takes this Hessian with
-about twice the points (or :func:`differenced_hessian`, which differences the exact
-gradient, for the Laplace approximation).
+part of the adaptive rule's accuracy, so the covariance of a fit takes this Hessian with as
+many points as it needs to match one with about twice the points
+(:func:`ordwidgets.core.grouped_choices.choose_covariance_points`), or
+:func:`differenced_hessian`, which differences the exact gradient, for the Laplace
+approximation.
 
 Every evaluation passes over the rows once for all nodes (arrays of shape ``(n, Q)``) plus
 a few times for the modes (Newton steps per group, warm-started from the previous
@@ -384,14 +386,16 @@ def _rowdot(a, b):
 
 
 def _node_moments(T, v, zr):
-    """Per-row sums over nodes of the second-derivative pieces :func:`moment_hessian` needs."""
-    su, sl = T["uu"] + T["ul"], T["ul"] + T["ll"]
-    ss = su + sl
+    """Per-row sums over nodes of the second-derivative pieces :func:`moment_hessian` needs
+    (the sums of ``uu + ul`` and the like are added from the three basic ones)."""
     vz = v * zr
-    vzz = vz * zr
-    return {"uu": _rowdot(v, T["uu"]), "ll": _rowdot(v, T["ll"]), "ul": _rowdot(v, T["ul"]),
-            "tu0": _rowdot(v, su), "tl0": _rowdot(v, sl), "tu1": _rowdot(vz, su), "tl1": _rowdot(vz, sl),
-            "s0": _rowdot(v, ss), "s1": _rowdot(vz, ss), "s2": _rowdot(vzz, ss)}
+    uu, ul, ll = _rowdot(v, T["uu"]), _rowdot(v, T["ul"]), _rowdot(v, T["ll"])
+    zuu, zul, zll = _rowdot(vz, T["uu"]), _rowdot(vz, T["ul"]), _rowdot(vz, T["ll"])
+    ss = T["uu"] + T["ll"]
+    ss += 2.0 * T["ul"]
+    vz *= zr
+    return {"uu": uu, "ll": ll, "ul": ul, "tu0": uu + ul, "tl0": ul + ll, "tu1": zuu + zul, "tl1": zul + zll,
+            "s0": uu + 2.0 * ul + ll, "s1": zuu + 2.0 * zul + zll, "s2": _rowdot(vz, ss)}
 
 
 def _node_correction(rows, link, theta, eta, sigma, z, c, t, pi, nodes, s1_groups):

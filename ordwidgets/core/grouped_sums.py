@@ -93,15 +93,18 @@ def score_matrices(rows):
     m, p, y, g = rows.n_levels - 1, rows.X.shape[1], rows.codes, rows.groups
     n, G = len(y), rows.n_groups
     w = np.ones(n) if rows.weights is None else rows.weights
-    eff_rows = (G * m + g[:, None] * p + np.arange(p)[None, :]).ravel()
-    eff_cols = np.repeat(np.arange(n), p)
-    eff_data = -(w[:, None] * rows.X).ravel()
+    cells = np.empty((n, p + 1), np.intp)  # per row: its threshold cell, then its effect cells
+    cells[:, 1:] = G * m + g[:, None] * p + np.arange(p)[None, :]
+    data = np.empty((n, p + 1))
+    data[:, 0] = w
+    data[:, 1:] = -(w[:, None] * rows.X)
     out = []
     for keep, shift in ((y < m, 0), (y > 0, -1)):
-        i = np.flatnonzero(keep)
-        r = np.concatenate([g[i] * m + y[i] + shift, eff_rows])
-        c = np.concatenate([i, eff_cols])
-        out.append(sparse.csc_matrix((np.concatenate([w[i], eff_data]), (r, c)), shape=(G * (m + p), n)))
+        cells[:, 0] = g * m + y + shift
+        use = np.ones((n, p + 1), bool)
+        use[:, 0] = keep
+        indptr = np.concatenate([[0], np.cumsum(p + keep.astype(np.intp))])
+        out.append(sparse.csc_matrix((data[use], cells[use], indptr), shape=(G * (m + p), n)))
     return tuple(out)
 
 

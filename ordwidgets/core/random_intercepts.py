@@ -9,7 +9,7 @@ protocol as the plain and extended models (``n_params``, ``counts()``, ``sums(li
 order)``, ``feasible``, ``start``), on standardised columns.  The Newton steps use an
 approximate Hessian (see each design).  The covariance is the inverse of the negative
 observed Hessian at the optimum: for one grouping column with at least 3 points one
-analytic fixed-node Hessian with about twice the points (:meth:`RandomInterceptDesign.observed_hessian`),
+analytic fixed-node Hessian with enough points (:meth:`RandomInterceptDesign.observed_hessian`),
 otherwise the exact gradient differenced; the fit counts as converged only when that
 Hessian is negative definite too.  The one-column fit starts from the plain model on the
 same rows (:meth:`RandomInterceptDesign.start`) and, by default, chooses its number of
@@ -29,7 +29,7 @@ from .engine import (check_enough_rows, closed_form_thresholds, covariance_on_us
                      user_scale_matrix)
 from .exceptions import DataWarning, OrdinalDataError
 from .crossed_likelihood import MAX_GROUPS, CrossedRows, laplace_sums
-from .grouped_choices import REFERENCE_POINTS, attenuation, choose_points, sd_start
+from .grouped_choices import attenuation, choose_covariance_points, choose_points, sd_start
 from .grouped_likelihood import GroupedRows, differenced_hessian, marginal_sums, quadrature_rule
 from .links import get_link
 from .layout import parallel_layout
@@ -60,7 +60,7 @@ class _GroupedDesign:
         """Observed information's negative: central differences of the exact gradient."""
         return differenced_hessian(lambda x: self.evaluate(link, x, order=1).grad, params)
 
-    def observed_hessian(self, link, params):
+    def observed_hessian(self, link, params, last=None):
         """Hessian for the covariance at the optimum: :meth:`hessian` (the Newton metric is
         not the Hessian of this approximation)."""
         return self.hessian(link, params)
@@ -100,7 +100,7 @@ class RandomInterceptDesign(_GroupedDesign):
 
     def __init__(self, rows: GroupedRows, points: int | None):
         self.rows, self.points, self.auto = rows, points, points is None
-        self._modes, self._warm = None, None
+        self._modes, self._warm, self._last = None, None, None
 
     def start(self, link):
         """Start values from the plain model on the same rows.
@@ -131,6 +131,7 @@ class RandomInterceptDesign(_GroupedDesign):
         out = marginal_sums(self.rows, link, params, points=self.points, order=order, start_modes=self._modes)
         if np.all(np.isfinite(out.modes)):
             self._modes = out.modes
+            self._last = (get_link(link).name, np.array(params, float), out)
         return out
 
     def sums(self, link, params, *, order=2):
@@ -147,25 +148,30 @@ class RandomInterceptDesign(_GroupedDesign):
             hess = marginal_sums(self.rows, link, params, points=5, order=2, start_modes=out.modes).hess
         return out.loglik, out.grad, hess
 
-    def observed_hessian(self, link, params):
-        """Hessian for the covariance at the optimum ``params``: one analytic evaluation.
+    def observed_hessian(self, link, params, last=None):
+        """Hessian for the covariance at the optimum ``params``: at most one analytic evaluation.
 
         From 3 points on, the fixed-node Hessian (module docstring of
-        :mod:`~ordwidgets.core.grouped_likelihood`) with :func:`covariance_points` points:
-        with nodes held fixed the derivatives lose the adaptive rule's accuracy (at the
-        fit's own points it can be off by 1e-3 of the SEs in groups of a dozen rows), and
-        about twice the points bring it back to the accuracy of the differenced exact
-        gradient (checked against differences in the tests).  Below 3 points the exact
-        gradient is differenced.
+        :mod:`~ordwidgets.core.grouped_likelihood`) with the points of
+        :func:`~ordwidgets.core.grouped_choices.choose_covariance_points`; when that is the
+        fit's own number, ``last`` (the last Newton step's Hessian, at ``params``) is used.
+        Below 3 points the exact gradient is differenced.
         """
         if self.points < 3:
             return self.hessian(link, params)
-        return marginal_sums(self.rows, link, params, points=covariance_points(self.points), order=2,
-                             start_modes=self._modes).hess
+        q = choose_covariance_points(self.rows, link, params, self.points)
+        if q == self.points and last is not None:
+            return last
+        return marginal_sums(self.rows, link, params, points=q, order=2, start_modes=self._modes).hess
 
     def conditional_effects(self, link, params):
-        """Per grouping column: conditional modes of ``z`` and their (Laplace) SDs."""
-        out = self.evaluate(link, params, order=0)
+        """Per grouping column: conditional modes of ``z`` and their (Laplace) SDs (from the
+        last evaluation when it was at ``params``)."""
+        last = getattr(self, "_last", None)
+        if last is not None and last[0] == get_link(link).name and np.array_equal(last[1], params):
+            out = last[2]
+        else:
+            out = self.evaluate(link, params, order=0)
         return [(out.modes, 1.0 / np.sqrt(out.curvature))]
 
 
@@ -198,12 +204,6 @@ class LaplaceDesign(_GroupedDesign):
         sd = np.sqrt(np.diag(out.inverse))
         offsets, sizes = self.rows.offsets, self.rows.sizes
         return [(out.modes[o:o + k], sd[o:o + k]) for o, k in zip(offsets, sizes)]
-
-
-def covariance_points(points):
-    """Points of the fixed-node Hessian behind the covariance: ``2 points + 1``, at most 50
-    (:data:`~ordwidgets.core.grouped_choices.REFERENCE_POINTS`) unless ``points`` is more."""
-    return max(points, min(2 * points + 1, REFERENCE_POINTS))
 
 
 def grouping_columns(random_intercepts):
@@ -352,7 +352,7 @@ def _observed_information(design, link, fitted, A, formula):
     outcome = fitted.internal
     if not np.all(np.isfinite(outcome.params)):
         return outcome, fitted.cov, fitted.converged, fitted.message, fitted.curvature_condition
-    H = design.observed_hessian(link, outcome.params)
+    H = design.observed_hessian(link, outcome.params, outcome.hess)
     outcome = NewtonOutcome(outcome.params, outcome.loglik, outcome.grad, H, outcome.iterations,
                             outcome.decrement, outcome.status)
     converged, message, condition = fitted.converged, fitted.message, fitted.curvature_condition
