@@ -35,10 +35,10 @@ from .core import FitResult, OrdinalDataError, fit as core_fit, link_names
 from .core.arguments import STATE_OPTION_RULES, check_keys, check_thresholds
 from .core.effects import probabilities_at
 from . import _groups, _spec
+from ._group_state import GroupTraits
 from ._jobs import JobRunner
 from ._loglik import RowLoglik
 from .core.layout import cumulative_predictors, location_predictor
-from .core.mixed_results import GROUP_KINDS
 
 __all__ = ["FitState", "CHANGE_KINDS", "ThresholdEditError", "unusable"]
 
@@ -53,14 +53,16 @@ _KIND_OF = {
 _SPEC = ("data", "formula", "link", "options", "dropped", "nonparallel", "scale_by", "random_intercepts")
 
 
-class FitState(tl.HasTraits):
+class FitState(GroupTraits):
     """Shared, observable state of one cumulative link fit and the edits made to it.
 
     Build it with :meth:`from_fit` or ``FitState(data=df, formula="y ~ x", link="logit")``.
     Refits happen only when :attr:`data`, :attr:`formula`, :attr:`options`, :attr:`dropped`,
     :attr:`nonparallel`, :attr:`scale_by`, :attr:`random_intercepts` or :attr:`link` change.
     Every refit passes all of them to ``ow.fit`` (:meth:`fit_kwargs`), so a link change or a
-    dropped predictor keeps the random part, the cluster column and the weight kind.
+    dropped predictor keeps the random part, the cluster column and the weight kind.  The
+    traits of the random part and the picked group are declared in
+    :class:`~ordwidgets._group_state.GroupTraits`.
     """
 
     data = tl.Instance(pd.DataFrame, allow_none=True, help="The data frame the model is fitted on.")
@@ -72,18 +74,6 @@ class FitState(tl.HasTraits):
     dropped = tl.Tuple(help="Predictors left out of the model (model controls: 'out').")
     nonparallel = tl.Tuple(help="Predictors with a separate effect per threshold (non-parallel).")
     scale_by = tl.Tuple(help="Predictors with a scale effect on the latent spread.")
-    random_intercepts = tl.Tuple(help="Grouping columns with a normal random intercept each (Hedeker & Gibbons "
-                                      "1994); setting it refits.  The model controls switch each on and off.")
-    group_candidates = tl.Tuple(help="Grouping columns the model controls offer to switch on and off: those "
-                                     "given here and every column of random_intercepts.")
-    group_column = tl.Unicode("", help="Grouping column of the picked group (the fit's first by default; '' "
-                                       "without random intercepts).")
-    group = tl.Any(None, allow_none=True, help="The picked group: a label of group_column seen in the fit, or "
-                                               "None.  Set by the group-effects panel.")
-    group_kind = tl.Enum(GROUP_KINDS, default_value="population",
-                         help="Probabilities shown for a random-intercept fit: 'population' (averaged over the "
-                              "groups), 'typical' (group effect 0) or 'conditional' (the picked group at its "
-                              "estimated effect).  Set by the explorer.")
     fit = tl.Instance(FitResult, allow_none=True, help="Maximum-likelihood fit of the current spec.")
     thresholds = tl.Tuple(help="Thresholds shown (strictly increasing); the fitted ones until edited.")
     loglik = tl.Float(np.nan, help="Log-likelihood at the shown thresholds with the fitted effects.")
@@ -272,45 +262,6 @@ class FitState(tl.HasTraits):
         params = np.concatenate([self.theta, res.params[res.n_thresholds:]])
         return probabilities_at(res, self.design_of(frame), params, warn=False)
 
-    # ---- random intercepts -------------------------------------------------------------------------
-    @property
-    def grouping(self) -> tuple:
-        """Grouping columns of the current fit (``()`` unless it has random intercepts)."""
-        return _groups.grouping_of(self.fit)
-
-    @property
-    def group_offset(self) -> float:
-        """Latent shift of the probabilities shown: the picked group's estimated effect (its
-        conditional mode, ``group_effects``) when :attr:`group_kind` is ``"conditional"``, else 0."""
-        if self.group_kind != "conditional" or self.group is None:
-            return 0.0
-        return float(self.group_effects(self.group_column).loc[self.group, "estimate"])
-
-    def group_effects(self, column=None):
-        """The core's ``group_effects(column)`` of the current fit (kept until the next refit)."""
-        column = column or self.group_column
-        key = ("group effects", column)
-        if key not in self._frames:
-            self._frames[key] = self.fit.group_effects(column)
-        return self._frames[key]
-
-    def group_rows(self) -> np.ndarray:
-        """Positions of the fitted rows of the picked group (empty when none is picked)."""
-        if self.group is None or not self.grouping:
-            return np.zeros(0, dtype=np.int64)
-        return _groups.group_rows(self.fit, self.group_column, self.group)
-
-    def kind_text(self) -> str:
-        """Plain words for the probabilities shown ("" for a fit without random intercepts)."""
-        if not self.grouping:
-            return ""
-        return _groups.kind_text(self.group_kind, self.group_column, self.group, several=len(self.grouping) > 1)
-
-    def fit_kwargs(self) -> dict:
-        """Keyword arguments of ``ow.fit`` (besides formula, data, link) for the current spec."""
-        return _groups.fit_kwargs(self.options, _spec.model_kwargs(self.nonparallel, self.scale_by, self.included),
-                                  self.random_intercepts)
-
     def crossings(self, frame) -> list:
         """Per row of ``frame``: the ``(lower cut, upper cut)`` name pairs that cross (``[]`` if none)."""
         _, U, _ = self.cuts_of(frame)
@@ -354,39 +305,6 @@ class FitState(tl.HasTraits):
         if rows.size and (rows[0] < 0 or rows[-1] >= n):
             raise tl.TraitError(f"selection holds row positions outside 0..{n - 1}")
         return tuple(int(r) for r in rows)
-
-    @tl.validate("random_intercepts", "group_candidates")
-    def _valid_grouping(self, proposal):
-        names = tuple(dict.fromkeys(proposal["value"]))
-        bad = [v for v in names if not isinstance(v, str) or (self.data is not None and v not in self.data.columns)]
-        if bad:
-            raise tl.TraitError(f"grouping columns must be columns of the data, got {bad}")
-        return names
-
-    @tl.validate("group_column")
-    def _valid_group_column(self, proposal):
-        name = proposal["value"]
-        if name and self.fit is not None and name not in self.grouping:
-            raise tl.TraitError(f"group_column must be a grouping column of the fit {list(self.grouping)}, got {name!r}")
-        return name
-
-    @tl.validate("group")
-    def _valid_group(self, proposal):
-        if proposal["value"] is None or self.fit is None:
-            return proposal["value"]
-        try:
-            return _groups.group_label(self.fit, self.group_column, proposal["value"])
-        except ValueError as exc:
-            raise tl.TraitError(str(exc)) from None
-
-    @tl.validate("group_kind")
-    def _valid_group_kind(self, proposal):
-        kind = proposal["value"]
-        if self.fit is not None and kind != "population" and not self.grouping:
-            raise tl.TraitError(f"group_kind {kind!r} needs a fit with random intercepts")
-        if self.fit is not None and kind == "conditional" and self.group is None:
-            raise tl.TraitError("group_kind 'conditional' needs a picked group (state.group)")
-        return kind
 
     @tl.validate("dropped", "nonparallel", "scale_by")
     def _valid_names(self, proposal):
@@ -521,20 +439,6 @@ class FitState(tl.HasTraits):
         self.selection = tuple(r for r in self.selection if r < n_training(res))
         self._install_groups(res)
         self._update_loglik()
-
-    def _install_groups(self, res):
-        """Grouping traits that hold for ``res``: the picked group kept while the new fit has it."""
-        groups = _groups.grouping_of(res)
-        self.random_intercepts = groups
-        self.group_candidates = tuple(dict.fromkeys(self.group_candidates + groups))
-        column = self.group_column if self.group_column in groups else (groups[0] if groups else "")
-        try:
-            group = None if self.group is None or not column else _groups.group_label(res, column, self.group)
-        except ValueError:
-            group = None
-        if self.group_kind == "conditional" and group is None or not groups:
-            self.group_kind = "population"
-        self.group, self.group_column, self.group = None, column, group
 
     def _restore_good(self, message):
         for name, value in (self._good or {}).items():
