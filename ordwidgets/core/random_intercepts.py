@@ -117,7 +117,7 @@ class RandomInterceptDesign(_GroupedDesign):
             return self._warm[1].copy()
         rows = self.rows
         plain = maximise(SortedDesign(np.asfortranarray(rows.X), rows.bounds, rows.weights), link, warn=False,
-                         what="plain start of the random-intercept fit")
+                         tol=1e-6, what="plain start of the random-intercept fit")  # a start: loose tolerance
         if not np.all(np.isfinite(plain.params)):
             return super().start(link)
         sigma = sd_start(rows, link, plain.params)
