@@ -26,6 +26,7 @@ from scipy import special, stats
 
 from .design import threshold_labels
 from .exceptions import ComparisonError, OrdinalDataError
+from .html_table import html_table
 from .layout import parallel_layout
 from .probabilities import category_probabilities
 from .results import FitResult, TrainingData
@@ -301,17 +302,13 @@ class RandomInterceptFit(FitResult):
     def _repr_html_(self) -> str:
         e = html.escape
         vc = self.variance_components
-        rows = "".join(
-            f"<tr><td style='padding:2px 8px'>{e(str(g))}</td>"
-            + "".join(f"<td style='text-align:right;padding:2px 8px'>{v:.4g}</td>" for v in r[["sd", "lower", "upper"]])
-            + f"<td style='text-align:right;padding:2px 8px'>{int(r['n_groups']):,}</td></tr>"
-            for g, r in vc.iterrows())
+        rows = [[str(g)] + [f"{v:.4g}" for v in r[["sd", "lower", "upper"]]] + [f"{int(r['n_groups']):,}"]
+                for g, r in vc.iterrows()]
         points = self.options.get("quadrature")
         method = "Laplace approximation" if points == 1 else f"adaptive Gauss-Hermite quadrature, {points} points"
         block = ("<div class='ow-variance-components' style='margin-top:6px'><b>Random intercepts</b> "
                  f"(SD on the latent scale; 95% profile-likelihood interval; marginal likelihood by {e(method)})"
-                 "<table style='border-collapse:collapse'><tr><th>grouping</th><th>sd</th><th>lower</th>"
-                 f"<th>upper</th><th>groups</th></tr>{rows}</table></div>")
+                 + html_table(["grouping", "sd", "lower", "upper", "groups"], rows, labels=1) + "</div>")
         base = super()._repr_html_()
         return base[: -len("</div>")] + block + "</div>"
 

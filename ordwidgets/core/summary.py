@@ -10,6 +10,7 @@ import html
 
 import numpy as np
 
+from .html_table import Section, html_table
 from .layout import effect_groups, model_facts
 
 __all__ = ["weighting_text", "weighting_of", "level_counts", "data_line", "fit_line", "solver_sentence", "summary_facts",
@@ -130,7 +131,6 @@ def fmt_value(v) -> str:
     return str(v)
 
 
-_CELL = "padding:2px 8px;text-align:right"
 
 
 def _facts_html(res) -> str:
@@ -143,25 +143,19 @@ def _facts_html(res) -> str:
     return "".join(rows)
 
 
-def _interval_head(tab, level=0.95) -> str:
-    """Header row naming the interval method over the ``wald_low`` / ``wald_high`` columns."""
+def _interval_head(tab, level=0.95) -> list:
+    """Heading over the ``wald_low`` / ``wald_high`` columns naming the interval method."""
     before = list(tab.columns).index("wald_low") + 1
-    return (f"<tr><th colspan='{before}'></th><th colspan='2' style='text-align:center;padding:2px 8px;"
-            f"font-weight:normal;font-style:italic'>{level:.0%} Wald interval</th></tr>")
+    return [("", before), (f"{level:.0%} Wald interval", 2)]
 
 
 def render_html(res, sign_convention) -> str:
     """HTML summary of our own design; every data-derived string is escaped."""
     e = html.escape
     tab = res.table()
-    head = "".join(f"<th style='{_CELL}'>{e(c)}</th>" for c in tab.columns)
 
     def rows(names, title):
-        out = f"<tr><td colspan='{len(tab.columns) + 1}' style='font-weight:bold;padding-top:6px'>{e(title)}</td></tr>"
-        for n in names:
-            cells = "".join(f"<td style='{_CELL}'>{e(fmt_value(v))}</td>" for v in tab.loc[n])
-            out += f"<tr><td style='padding:2px 8px'>{e(str(n))}</td>{cells}</tr>"
-        return out
+        return [Section(title)] + [[str(n)] + [fmt_value(v) for v in tab.loc[n]] for n in names]
 
     body = rows(res.threshold_names, "Thresholds (cut points on the latent scale)")
     scale = effect_groups(res)["scale"]
@@ -175,6 +169,6 @@ def render_html(res, sign_convention) -> str:
         "<div class='ow-fit-result'>"
         f"<div style='font-weight:bold'>Cumulative link fit &middot; {e(res.formula)}</div>"
         f"<div style='font-size:90%;margin:4px 0'>{_facts_html(res)}</div>{notes}"
-        f"<table style='border-collapse:collapse'>{_interval_head(tab)}<tr><th></th>{head}</tr>{body}</table>"
+        f"{html_table([''] + list(tab.columns), body, labels=1, above=_interval_head(tab))}"
         f"<div style='font-size:85%;color:#555;margin-top:4px'>{e(sign_convention)}</div></div>"
     )

@@ -12,6 +12,7 @@ import html
 
 import pandas as pd
 
+from .html_table import html_table
 from .summary import fmt_value as format_number
 
 __all__ = ["format_number", "format_frame", "table_markdown", "table_latex", "table_html"]
@@ -61,8 +62,8 @@ def table_latex(frame, *, caption=None) -> str:
 
 
 def table_html(frame, *, css="ow-table") -> str:
-    """An HTML ``<table>`` (through pandas' Styler); every label and cell escaped."""
+    """An HTML ``<table>`` (the one builder, :func:`~ordwidgets.core.html_table.html_table`);
+    every label and cell escaped."""
     out = format_frame(frame)
-    styler = out.style.format(escape="html").format_index(escape="html", axis=0).format_index(escape="html", axis=1)
-    text = styler.to_html(table_uuid="t", exclude_styles=True)
-    return text.replace("<table>", f'<table class="{html.escape(css, quote=True)}">', 1)
+    rows = [[label, *cells] for label, cells in zip(out.index, out.to_numpy().tolist())]
+    return html_table([frame.index.name or "", *out.columns], rows, css=css, labels=1)

@@ -14,6 +14,7 @@ import bqplot as bq
 import ipywidgets as w
 import numpy as np
 
+from ..core.html_table import html_table as core_html_table
 from ..core.summary import weighting_text
 
 __all__ = ["PanelBase", "esc", "category_colours", "heading_html", "make_figure", "figure_toolbar", "html_table",
@@ -105,12 +106,9 @@ def figure_toolbar(figure, name):
 
 
 def html_table(columns, rows, css="") -> str:
-    """An HTML table; every header and cell is escaped."""
-    head = "".join(f"<th style='padding:1px 6px;text-align:right'>{esc(c)}</th>" for c in columns)
-    body = "".join(
-        "<tr>" + "".join(f"<td style='padding:1px 6px;text-align:right'>{esc(v)}</td>" for v in row) + "</tr>"
-        for row in rows)
-    return f"<table class='{esc(css)}' style='border-collapse:collapse;font-size:90%'><tr>{head}</tr>{body}</table>"
+    """A panel's HTML table (the core's one builder); every header and cell is escaped."""
+    return core_html_table(columns, rows, css=css, style="border-collapse:collapse;font-size:90%",
+                           cell="padding:1px 6px;text-align:right")
 
 
 def nice_ticks(lo, hi, count=6) -> np.ndarray:

@@ -5,6 +5,7 @@ import ipywidgets as w
 import numpy as np
 
 from ..core import SIGN_CONVENTION, link_names
+from ..core.html_table import html_table as core_html_table
 from ..core.summary import covariance_fact
 from ._common import PanelBase, esc, fmt, html_table
 
@@ -65,26 +66,25 @@ def _po_cells(row) -> list:
             fmt(row.get("brant_p_value", np.nan), 3), f"{100 * change:.1f} pts" if np.isfinite(change) else "-"]
 
 
-def _po_tr(cells, term="", tag="td") -> str:
-    out = "".join(f"<{tag} title='{esc(tip)}' style='width:{px}px;padding:0 4px;text-align:right"
-                  f"{';font-weight:bold' if i == 0 and tag == 'td' else ''}'>{esc(c)}</{tag}>"
-                  for i, (c, (_, px, tip)) in enumerate(zip(cells, _PO_COLUMNS)))
-    return f"<tr>{out}<{tag} style='padding:0 4px;text-align:left'>{esc(term)}</{tag}></tr>"
+def _po_table(header, rows, css="", style="font-size:90%;font-variant-numeric:tabular-nums") -> str:
+    """The figures' columns (fixed widths, tooltips) and the term last, left-aligned."""
+    return core_html_table(header, rows, css=css, style=f"border-collapse:collapse;table-layout:fixed;{style}",
+                           cell="padding:0 4px;text-align:right", label_style="padding:0 4px;text-align:left",
+                           labels=-1, bold_first=True, widths=[c[1] for c in _PO_COLUMNS],
+                           titles=[c[2] for c in _PO_COLUMNS])
 
 
 def po_figures_html(rows) -> str:
     """Aligned figures of one or more test rows ``[(term, figures)]`` with the sentences on demand."""
-    body = "".join(_po_tr(_po_cells(r), term) for term, r in rows)
+    body = [_po_cells(r) + [term] for term, r in rows]
     sentences = "<br>".join(esc(f"{term}: {_po_text(r)}" if term else _po_text(r)) for term, r in rows)
-    return (f"<table class='ow-po-figures' style='border-collapse:collapse;table-layout:fixed;font-size:90%;"
-            f"font-variant-numeric:tabular-nums'>{body}</table>"
-            f"<details style='font-size:85%;color:#555'><summary>details</summary>{sentences}</details>")
+    return (_po_table(None, body, css="ow-po-figures")
+            + f"<details style='font-size:85%;color:#555'><summary>details</summary>{sentences}</details>")
 
 
 def po_header_html() -> str:
     """The column headers of :func:`po_figures_html` (same widths, so the figures line up)."""
-    return (f"<table style='border-collapse:collapse;table-layout:fixed;font-size:80%;color:#555'>"
-            f"{_po_tr([c[0] for c in _PO_COLUMNS], tag='th')}</table>")
+    return _po_table([c[0] for c in _PO_COLUMNS] + [""], [], style="font-size:80%;color:#555")
 
 
 class LinkSelector(PanelBase):
