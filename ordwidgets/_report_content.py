@@ -278,6 +278,11 @@ def whatif_section(state, whatifs, level):
     blocks = [Para("Each table compares the predicted shares of a scenario with a baseline case (scenario "
                    f"minus baseline, with {level:.0%} delta-method intervals of the difference, at the fitted "
                    "thresholds).")]
+    if state.grouping:  # the core's difference intervals are those of a typical group
+        blocks.append(Para(f"Random intercepts per {', '.join(map(str, state.grouping))}: the tables are for a "
+                           "typical group (group effect 0), the kind of probability the core gives difference "
+                           f"intervals for; the figure shows {state.kind_text()}. Population-averaged and "
+                           "group probabilities differ."))
     for name, scen, base in cases:
         frames = [_spec.match_dtypes(pd.DataFrame({k: [v] for k, v in case.items()}), state.data)
                   for case in (scen, base)]

@@ -205,3 +205,16 @@ def test_binned_groups_against_numpy():
     for k, (a, b) in enumerate(zip(edges[:-1], edges[1:])):
         assert bins["estimate"].iloc[k] == np.median(est[a:b])
         assert bins["lower"].iloc[k] == (est - se)[a:b].min() and bins["upper"].iloc[k] == (est + se)[a:b].max()
+
+
+def test_report_says_which_probabilities_its_what_if_tables_hold(state, tmp_path, mixed):
+    """The what-if tables use the core's difference of a typical group (u = 0): said in words."""
+    from ordwidgets._report_content import whatif_section
+
+    section = whatif_section(state, (), 0.95)
+    text = " ".join(str(getattr(b, "text", "")) for b in section.blocks)
+    assert "typical group (group effect 0)" in text and "population-averaged probabilities" in text
+    table = next(b for b in section.blocks if type(b).__name__ == "Table")
+    frame = state.scenario_frame()
+    typical = mixed.predict(frame, groups="typical").to_numpy()[0]
+    np.testing.assert_allclose(table.frame["scenario"].to_numpy()[:-1], typical, atol=1e-12)

@@ -13,9 +13,9 @@ from nbharness import NOTEBOOK_DIR
 pytestmark = pytest.mark.browser
 
 # figures each notebook shows: the tour's dashboard has the latent plot, the explorer, the
-# residual plot and the QQ plot; model checking shows two residual panels (2 figures each);
-# the what-if notebook shows one explorer
-FIGURES = {"tour.ipynb": 4, "model_checking.ipynb": 4, "what_if.ipynb": 1}
+# residual plot and the QQ plot; model checking shows two residual panels (2 figures each)
+# and the group-effects panel; the what-if notebook shows one explorer
+FIGURES = {"tour.ipynb": 4, "model_checking.ipynb": 5, "what_if.ipynb": 1}
 # (element, which one, picture name, device pixel ratio): the overview is drawn at 0.8 to stay small
 SHOTS = {"tour.ipynb": (".ow-dashboard", 0, "dashboard", 0.8),
          "model_checking.ipynb": (".ow-residual-panel", 1, "residuals_fixed", 1.0),
