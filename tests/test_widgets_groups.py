@@ -38,6 +38,7 @@ def test_panel_numbers_are_the_cores_group_effects_sorted(panel, mixed):
     np.testing.assert_allclose(np.asarray(panel.bars.y)[:, 0], panel.points.y - z * se, rtol=0, atol=1e-12)
     np.testing.assert_allclose(np.asarray(panel.bars.y)[:, 1], panel.points.y + z * se, rtol=0, atol=1e-12)
     assert list(panel.table.index) == list(core.index[order])
+    assert [panel.x_axis.tick_labels[float(k)] for k in range(len(core))] == [str(g) for g in core.index[order]]
 
 
 def test_sd_with_its_profile_interval_is_shown(panel, mixed):

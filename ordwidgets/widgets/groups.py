@@ -24,6 +24,8 @@ __all__ = ["GroupEffectsPanel", "group_table", "binned_groups", "MAX_GROUPS"]
 
 #: At most this many groups are drawn one by one; beyond, consecutive ranks are binned.
 MAX_GROUPS = 2000
+#: Up to this many groups the x axis names each group (beyond, it shows ranks).
+NAMED_TICKS = 30
 _NONE = "(none)"
 
 
@@ -153,12 +155,22 @@ class GroupEffectsPanel(PanelBase):
             self.bars.x = np.column_stack([x, x])
             self.bars.y = shown[["lower", "upper"]].to_numpy(float)
             self.zero.x, self.zero.y = [float(x.min()) - 0.5, float(x.max()) + 0.5], [0.0, 0.0]
+            self._draw_axis(shown)
         self._by_name = {str(g): g for g in self.table.index}
         with self._guard():  # a few thousand options at most; beyond, the picker takes typed labels
             self.picker.ensure_option = self.bins is None
             self.picker.options = [_NONE] + list(self._by_name) if self.bins is None else [_NONE]
         self._update_caption()
         self._update_pick()
+
+    def _draw_axis(self, shown):
+        """Group names under the points when there are few (SVG text, not HTML), else ranks from 0."""
+        named = self.bins is None and len(shown) <= NAMED_TICKS
+        x = shown["rank"].to_numpy(float)
+        self.x_axis.tick_values = x if named else None
+        # integer keys: the frontend looks labels up by the tick's text ("3", where a float key is sent as "3.0")
+        self.x_axis.tick_labels = {int(r): str(g) for r, g in zip(x, shown.index)} if named else None
+        self.x_axis.label = "groups, sorted by estimated effect" + ("" if named else " (rank, 0 = lowest)")
 
     def _update_caption(self):
         n, z = len(self.table), float(stats.norm.ppf(0.5 + self.level / 2.0))
