@@ -78,6 +78,7 @@ def test_density_curvature_against_differentiation(link):
     lk = ow.get_link(link)
     ref = differentiate.derivative(lk.dlogpdf, t).df
     np.testing.assert_allclose(log_density_curvature(lk, t), ref, atol=1e-8)
+    np.testing.assert_allclose(log_density_curvature(lk, t, score=lk.dlogpdf(t)), ref, atol=1e-8)
 
 
 def test_sigma_zero_equals_plain_loglik():
