@@ -253,7 +253,8 @@ class ProbabilityExplorer(PanelBase):
     def _draw_axis(self, positions, values, categorical):
         self.x_axis.label = f"{self.state.focus} (others at the scenario values)"
         self.x_axis.tick_values = positions if categorical else None
-        self.x_axis.tick_labels = {float(p): str(v) for p, v in zip(positions, values)} if categorical else None
+        # int keys: the frontend looks a label up by the tick's text ("1"; a float key is sent as "1.0")
+        self.x_axis.tick_labels = {int(p): str(v) for p, v in zip(positions, values)} if categorical else None
         pad = 0.5 if categorical else 0.0
         self.xs.min, self.xs.max = float(positions.min() - pad), float(positions.max() + pad)
 

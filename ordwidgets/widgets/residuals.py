@@ -200,7 +200,7 @@ class ResidualPanel(PanelBase):
         if self.state.is_categorical(name):
             levels = grid_values(column, True)
             lookup = {v: i for i, v in enumerate(levels)}
-            return np.array([lookup[v] for v in column], float), {float(i): str(v) for i, v in enumerate(levels)}
+            return np.array([lookup[v] for v in column], float), {i: str(v) for i, v in enumerate(levels)}
         return column.to_numpy(float), None
 
     def _x_chosen(self, change):
