@@ -51,6 +51,7 @@ from .extended_fit import fit_layout
 from .layout import ModelLayout, all_training_rows, cumulative_predictors, layout_of
 from .objective import sort_by_category, sorted_standardised
 from .sandwich import likelihood_caveat
+from .sorted_design import weighted_gram
 from .terms import term_columns
 
 __all__ = ["proportional_odds_test", "brant_test", "tested_terms"]
@@ -173,12 +174,12 @@ def _brant_covariance(res, X, params):
     pi, f = res.link.sf(t), res.link.pdf(t)
     r = f / (pi * (1 - pi))
     m, k = params.shape
-    inv = [np.linalg.inv(D.T @ ((w * r[:, j] * f[:, j])[:, None] * D)) for j in range(m)]
+    inv = [np.linalg.inv(weighted_gram(D, w * r[:, j] * f[:, j])) for j in range(m)]
     V = np.zeros((m * k, m * k))
     for j in range(m):
         for l in range(j, m):
             cov_y = pi[:, l] * (1 - pi[:, j])
-            C = D.T @ ((w * r[:, j] * r[:, l] * cov_y)[:, None] * D)
+            C = weighted_gram(D, w * r[:, j] * r[:, l] * cov_y)  # in cached row blocks
             block = inv[j] @ C @ inv[l]
             V[j * k:(j + 1) * k, l * k:(l + 1) * k] = block
             V[l * k:(l + 1) * k, j * k:(j + 1) * k] = block.T

@@ -17,7 +17,7 @@ import numpy as np
 from .links import get_link
 from .objective import row_logp, row_terms
 
-__all__ = ["SortedDesign", "layout_sorted_design", "DEFAULT_CHUNK"]
+__all__ = ["SortedDesign", "layout_sorted_design", "weighted_gram", "DEFAULT_CHUNK"]
 
 DEFAULT_CHUNK = 131_072
 
@@ -333,7 +333,7 @@ class _Accumulator:
                 C[k, b] -= X.T @ cu
             if cl is not None:
                 C[k - 1, b] -= X.T @ cl
-            H[b, b] += _weighted_gram(X, _plus(cu, cl) if hul is None else np.add(cu, cl, out=hul))
+            H[b, b] += weighted_gram(X, _plus(cu, cl) if hul is None else np.add(cu, cl, out=hul))
 
     def _add_extended(self, X, S, weigh, t, inv, ends, dests):
         """Non-parallel and scale parts; without a scale (``inv`` is ``None``) the factors
@@ -364,7 +364,7 @@ class _Accumulator:
             G = _thin_product(X, _columns(S, [(None, sc(gu + gl)), (q, sc2(huu + hul)),
                                               (q, sc2(hll + hul))] + cz))
             self._effect_blocks(G, dests, nq)
-            self.H[self.beta, self.beta] += _weighted_gram(X, sc2(huu + hll + 2.0 * hul))
+            self.H[self.beta, self.beta] += weighted_gram(X, sc2(huu + hll + 2.0 * hul))
 
     def _gradient(self, R, dests, nq):
         g, z = self.g, self.zeta
@@ -433,7 +433,7 @@ def _thin_product(A, B):
 GRAM_BLOCK = 8192
 
 
-def _weighted_gram(Xs, c):
+def weighted_gram(Xs, c):
     """``Xs' diag(c) Xs``; as ``-(A'A)`` with ``A = Xs sqrt(-c)`` when ``c <= 0`` (log-concave
     links), which lets BLAS use the symmetric rank-k update at half the cost.
 
