@@ -11,7 +11,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
-from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import HealthCheck, assume, example, given, settings
 from hypothesis import strategies as st
 from scipy import optimize, stats
 
@@ -126,6 +126,7 @@ def test_duplicated_column_names_are_refused():
 
 @FAST
 @given(seed=st.integers(0, 10_000), top=st.integers(1, 3))
+@example(seed=947, top=2)  # found by hypothesis: stopped one Newton step early at decrement < 1e-10
 def test_integer_weights_equal_duplicated_rows_or_a_specific_refusal(seed, top):
     # Published property of frequency weights: weight k == the row repeated k times.
     df = _frame(n=90, seed=seed % 7)

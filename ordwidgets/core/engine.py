@@ -365,7 +365,7 @@ def _restart_from_probit(first, design, link, feasible, m, unit, max_iter, tol):
     return best
 
 
-def maximise(design, link, *, to_user=None, names=None, separated=(), max_iter=100, tol=1e-10,
+def maximise(design, link, *, to_user=None, names=None, separated=(), max_iter=100, tol=1e-12,
              callback=None, what="fit", warn=True, explain_failure=None):
     """Maximise the likelihood of ``design`` and describe the answer on the user's scale.
 

@@ -209,7 +209,7 @@ def _explainer(layout, design):
     return explain
 
 
-def fit_layout(layout, D, y, weights, link, *, max_iter=100, tol=1e-10, callback=None, what="fit", warn=True,
+def fit_layout(layout, D, y, weights, link, *, max_iter=100, tol=1e-12, callback=None, what="fit", warn=True,
                start=None, columns=None):
     """Maximise the likelihood of one layout on a full design ``D`` (user-scale answer).
 

@@ -25,7 +25,7 @@ from .results import FitResult, TrainingData
 __all__ = ["fit", "fit_dask"]
 
 
-def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100, tol=1e-10,
+def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100, tol=1e-12,
         keep_data=True, callback=None, nonparallel=None, scale_by=None, random_intercepts=None,
         quadrature=None, cluster=None, weight_kind="frequency"):
     """Fit a cumulative link model by maximum likelihood.
@@ -104,7 +104,7 @@ def fit(formula, data, *, link="logit", weights=None, levels=None, max_iter=100,
                         keep_data=keep_data)
 
 
-def fit_dask(formula, data, *, link="logit", weights=None, levels=None, max_iter=100, tol=1e-10,
+def fit_dask(formula, data, *, link="logit", weights=None, levels=None, max_iter=100, tol=1e-12,
              keep_data=True, callback=None, sample_rows=DEFAULT_SAMPLE_ROWS, seed=0, progress="auto",
              cache=False, nonparallel=None, scale_by=None):
     """Fit a cumulative link model to a Dask DataFrame (same model and result as :func:`fit`).

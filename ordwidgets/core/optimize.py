@@ -65,7 +65,7 @@ def ascent_direction(grad, hess):
     return grad / scale, True
 
 
-def newton_maximize(evaluate, start, *, feasible, max_iter=100, tol=1e-10, callback=None):
+def newton_maximize(evaluate, start, *, feasible, max_iter=100, tol=1e-12, callback=None):
     """Maximise a smooth function with safeguarded Newton steps.
 
     Parameters
