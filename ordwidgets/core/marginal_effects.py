@@ -7,114 +7,237 @@ derivative ``dP(Y = k)/dx = f(u_k) du_k/dx - f(u_{k-1}) du_{k-1}/dx`` with
 dummies of a factor, the change from the reference level to that level (the other dummies
 of the factor set to 0).  Effects sum to zero over the levels.
 
-Standard errors by the delta method (Oehlert 1992, Am. Stat. 46:27-29) with the analytic
-parameter gradients of averaged probabilities
-(:func:`~ordwidgets.core.effects.averaged_probabilities`); for a numeric column that
-gradient is differenced over ``-+ 1e-4`` standard deviations of the column.
+Standard errors by the delta method (Oehlert 1992, Am. Stat. 46:27-29) with analytic
+parameter gradients: of the averaged probabilities for discrete changes, and of the averaged
+derivative itself (second derivatives through ``f'``) for numeric columns.
+
+**Cost.**  The dummies of one factor share the cuts with the whole factor at its reference
+level (one product with the design per factor); each level only shifts them by its own
+effects, and the parameter gradients of all levels come from one product of the other design
+columns with the stacked per-level weights (:func:`level_changes`).
 
 Sign convention: a positive location effect moves probability towards higher categories,
 so its marginal effect is negative on the lowest level and positive on the highest.
 """
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pandas as pd
 
-from .effects import averaged_probabilities
-from .layout import cumulative_predictors, layout_of
+from .exceptions import CrossingWarning
+from .layout import cumulative_predictors, layout_of, unscaled_cuts
 from .terms import term_columns
 
-__all__ = ["average_marginal_effects", "analytic_marginal_effect"]
+__all__ = ["average_marginal_effects", "analytic_marginal_effect", "cut_gradient", "level_changes"]
+
+#: Stacked per-level weights are multiplied with the design in chunks of about this many floats.
+_CHUNK_FLOATS = 2_000_000
 
 
-def analytic_marginal_effect(res, D, c, weights):
-    """Weighted mean of ``dP(Y = k)/dx_c`` over the rows of ``D`` (shape ``(J,)``)."""
-    layout = layout_of(res)
-    theta, beta, gamma, zeta = layout.split(res.params)
-    U, sigma = cumulative_predictors(layout, res.params, D)
+def cut_gradient(layout, asum, PA, PB):
+    """``sum_i a_ij du_ij/dparams`` for each threshold ``j``, shape ``(m, P)``.
+
+    ``du_ij`` is ``1 / sigma_i`` times ``e_j``, ``-x_i`` and ``-w_i`` (at threshold ``j``)
+    for thresholds, parallel and per-threshold effects, and ``-u_ij z_i`` for scale effects.
+
+    Parameters
+    ----------
+    asum : ndarray, shape (m,)
+        ``sum_i a_ij / sigma_i``.
+    PA, PB : ndarray, shape (m, d)
+        ``sum_i (a_ij / sigma_i) d_i`` and ``sum_i a_ij u_ij d_i`` over the full design rows
+        ``d_i`` (``PB`` is only read for scale columns).
+    """
+    m = layout.m
+    _, bb, gb, zb = layout.blocks()
+    C = np.zeros((m, layout.n_params))
+    j = np.arange(m)
+    C[j, j] = asum
+    C[:, bb] = -PA[:, list(layout.location)]
+    for r, col in enumerate(layout.nonparallel):
+        C[j, gb.start + r * m + j] = -PA[:, col]
+    if layout.scale:
+        C[:, zb] = -PB[:, list(layout.scale)]
+    return C
+
+
+def _as_categories(C):
+    """Cumulative rows ``(m, ...)`` -> category rows ``(m + 1, ...)``: ``C_k - C_{k-1}``."""
+    pad = np.zeros((1,) + C.shape[1:])
+    return np.diff(np.concatenate([pad, C, pad]), axis=0)
+
+
+def _ends(link, U):
+    """``F(u)``, ``S(u)``, ``f(u)`` and ``f'(u) / f(u)`` (the one-pass kernel on finite ``u``)."""
+    if np.all(np.isfinite(U)):
+        return link.kernel(U)
+    return link.cdf(U), link.sf(U), link.pdf(U), link.dlogpdf(U)
+
+
+def _mean_probabilities(link, U, F, S, w):
+    """Weighted mean category probabilities, each difference taken on its exact side of the median."""
+    n = len(U)
+    lower = np.column_stack([np.full(n, -np.inf), U])
+    Fp = np.column_stack([np.zeros(n), F, np.ones(n)])
+    Sp = np.column_stack([np.ones(n), S, np.zeros(n)])
+    P = np.where(lower >= link.median, Sp[:, :-1] - Sp[:, 1:], Fp[:, 1:] - Fp[:, :-1])
+    return w @ np.maximum(P, 0.0)
+
+
+def _column_parts(layout, params, c):
+    """Shift ``beta_c + gamma_c`` (m,) and scale effect ``zeta_c`` of design column ``c``."""
+    _, beta, gamma, zeta = layout.split(params)
     shift = np.zeros(layout.m)
     if c in layout.location:
         shift += beta[layout.location.index(c)]
     if c in layout.nonparallel:
         shift += gamma[layout.nonparallel.index(c)]
-    du = -shift[None, :] / sigma[:, None]
+    return shift, (zeta[layout.scale.index(c)] if c in layout.scale else 0.0)
+
+
+def level_changes(res, D, w, group):
+    """Mean discrete changes from all of ``group`` at 0 to each member at 1 (the rest at 0).
+
+    Parameters
+    ----------
+    D : ndarray, shape (n, d)
+        Full design (the training rows).
+    w : ndarray, shape (n,)
+        Row weights summing to one.
+    group : list of int
+        0/1 design columns set together (a factor's dummies, or one 0/1 column).
+
+    Returns
+    -------
+    effects : ndarray, shape (len(group), J)
+    grads : ndarray, shape (len(group), J, P)
+        Parameter gradients of the effects.
+    crossed : list of bool
+        Per member: cumulative probabilities cross for some edited rows (effect ``nan``).
+    """
+    layout, link, params = layout_of(res), res.link, res.params
+    base = np.array(D, float)
+    base[:, group] = 0.0
+    X, W, Z = layout.arrays(base)
+    _, beta, _, zeta = layout.split(params)
+    num = unscaled_cuts(layout, params, W) - (X @ beta if beta.size else 0.0)[:, None]
+    logsig = Z @ zeta if zeta.size else np.zeros(len(base))
+    rest = [c for c in range(base.shape[1]) if c not in group]
+    members = [None] + list(group)
+    parts = [_level_terms(layout, link, params, num, logsig, w, c) for c in members]
+    PA, PB = _stacked_products(base[:, rest], [p[2] for p in parts], [p[3] for p in parts], bool(layout.scale))
+    grads = []
+    for k, (c, (_, asum, _, _, bsum)) in enumerate(zip(members, parts)):
+        full_a, full_b = np.zeros((layout.m, base.shape[1])), np.zeros((layout.m, base.shape[1]))
+        full_a[:, rest], full_b[:, rest] = PA[k], PB[k]
+        if c is not None:
+            full_a[:, c], full_b[:, c] = asum, bsum
+        grads.append(_as_categories(cut_gradient(layout, asum, full_a, full_b)))
+    crossed = [bool(p[0] is None) for p in parts]
+    means = np.array([np.full(layout.m + 1, np.nan) if p[0] is None else p[0] for p in parts])
+    effects = means[1:] - means[0]
+    return effects, np.array(grads[1:]) - grads[0], [crossed[0] or x for x in crossed[1:]]
+
+
+def _level_terms(layout, link, params, num, logsig, w, c):
+    """Mean probabilities and gradient weights of one level (``c`` at 1; ``None``: the reference)."""
+    shift, zc = (np.zeros(layout.m), 0.0) if c is None else _column_parts(layout, params, c)
+    with np.errstate(over="ignore"):
+        sigma = np.exp(logsig + zc)
+    U = (num - shift) / sigma[:, None]
+    F, S, f, _ = _ends(link, U)
+    A = (w / sigma)[:, None] * f
+    B = w[:, None] * f * U if layout.scale else None
+    crossing = layout.m > 1 and bool(np.any(np.diff(U, axis=1) < 0))
+    mean = None if crossing else _mean_probabilities(link, U, F, S, w)
+    return mean, A.sum(axis=0), A, B, (B.sum(axis=0) if B is not None else np.zeros(layout.m))
+
+
+def _stacked_products(R, As, Bs, scale):
+    """``A_k' R`` (and ``B_k' R``) for every level ``k``: products of the stacked weights in chunks."""
+    n, m = As[0].shape
+    levels = len(As)
+    PA, PB = np.zeros((levels, m, R.shape[1])), np.zeros((levels, m, R.shape[1]))
+    if R.shape[1] == 0:
+        return PA, PB
+    step = max(1, _CHUNK_FLOATS // max(1, n * m))
+    for s in range(0, levels, step):
+        ks = range(s, min(levels, s + step))
+        PA[ks.start:ks.stop] = (R.T @ np.hstack([As[k] for k in ks])).T.reshape(len(ks), m, -1)
+        if scale:
+            PB[ks.start:ks.stop] = (R.T @ np.hstack([Bs[k] for k in ks])).T.reshape(len(ks), m, -1)
+    return PA, PB
+
+
+def analytic_marginal_effect(res, D, c, weights, *, gradient=False):
+    """Weighted mean of ``dP(Y = k)/dx_c`` over the rows of ``D`` (shape ``(J,)``).
+
+    With ``gradient``, also its parameter gradient ``(J, P)``: with ``g_ij = du_ij/dx_c``,
+    ``d/dpsi sum_i w_i f(u_ij) g_ij = sum_i w_i [(f'(u_ij) g_ij - f(u_ij) zeta_c) du_ij/dpsi
+    + f(u_ij) (-(dshift_j/dpsi) / sigma_i + shift_j z_i'dzeta/dpsi / sigma_i - u_ij dzeta_c/dpsi)]``.
+    """
+    layout = layout_of(res)
+    U, sigma = cumulative_predictors(layout, res.params, D)
+    shift, zc = _column_parts(layout, res.params, c)
+    g = -shift[None, :] / sigma[:, None] - U * zc
+    _, _, f, score = _ends(res.link, U)
+    effect = _as_categories(weights @ (f * g))
+    if not gradient:
+        return effect
+    a = weights[:, None] * f * (score * g - zc)
+    a_s = a / sigma[:, None]
+    C = cut_gradient(layout, a_s.sum(axis=0), a_s.T @ D, (a * U).T @ D if layout.scale else None)
+    C += _shift_terms(layout, c, weights[:, None] * f, U, sigma, shift, D)
+    return effect, _as_categories(C)
+
+
+def _shift_terms(layout, c, wf, U, sigma, shift, D):
+    """The part of the derivative's gradient through ``shift_c``, ``sigma`` and ``zeta_c`` (u fixed)."""
+    m = layout.m
+    _, bb, gb, zb = layout.blocks()
+    C = np.zeros((m, layout.n_params))
+    q = wf / sigma[:, None]
+    qsum = q.sum(axis=0)
+    if c in layout.location:
+        C[:, bb.start + layout.location.index(c)] -= qsum
+    if c in layout.nonparallel:
+        j = np.arange(m)
+        C[j, gb.start + layout.nonparallel.index(c) * m + j] -= qsum
+    if layout.scale:
+        C[:, zb] += shift[:, None] * (q.T @ D[:, list(layout.scale)])
     if c in layout.scale:
-        du = du - U * zeta[layout.scale.index(c)]
-    dF = res.link.pdf(U) * du
-    n = len(U)
-    return weights @ np.diff(np.column_stack([np.zeros(n), dF, np.zeros(n)]), axis=1)
+        C[:, zb.start + layout.scale.index(c)] -= (wf * U).sum(axis=0)
+    return C
 
 
 def _binary_columns(D):
     return [bool(np.all((D[:, c] == 0.0) | (D[:, c] == 1.0))) for c in range(D.shape[1])]
 
 
-def _sibling_index(res, binary):
-    """For each design column, the other 0/1 columns of its formula term (a factor's dummies)."""
+def _binary_groups(res, binary):
+    """For each 0/1 design column, the 0/1 columns of its formula term (a factor's dummies) as one tuple."""
     cols = list(layout_of(res).columns)
-    out = {c: [] for c in range(len(cols))}
+    out = {c: (c,) for c in range(len(cols)) if binary[c]}
     for members in term_columns(res).values():
-        idx = [cols.index(m) for m in members if m in cols]
-        for c in idx:
-            out[c] = [s for s in idx if s != c and binary[s]]
+        idx = tuple(sorted(cols.index(m) for m in members if m in cols and binary[cols.index(m)]))
+        out.update({c: idx for c in idx})
     return out
 
 
-class _ParallelEdits:
-    """Mean probabilities of a parallel fit with some design columns set to other values.
-
-    Only the linear predictor changes (``eta - x_cols'beta_cols + new'beta_cols``) and the
-    gradient's effect block is ``-a'X`` with the edited columns replaced by ``-a'new``, so
-    no edited copy of the design is made; the old part of ``eta`` is kept per column set
-    (one product for all the dummies of a factor).
-    """
-
-    def __init__(self, res, X, w):
-        self.res, self.X, self.w = res, X, w
-        self.m = res.n_thresholds
-        self.theta, self.beta = res.params[:self.m], res.params[self.m:]
-        self.eta = X @ self.beta
-        self._old = {}
-
-    def average(self, cols, new):
-        """``new``: one value (scalar or ``(n,)`` array) per column of ``cols``."""
-        key = tuple(sorted(cols))
-        if key not in self._old:
-            self._old[key] = self.X[:, list(key)] @ self.beta[list(key)]
-        eta = self.eta - self._old[key] + sum(v * self.beta[c] for c, v in zip(cols, new))
-        U = self.theta[None, :] - eta[:, None]
-        n, m, link = len(U), self.m, self.res.link
-        A = self.w[:, None] * link.pdf(U)
-        C = np.zeros((m + 2, self.res.n_params))
-        C[np.arange(1, m + 1), np.arange(m)] = A.sum(axis=0)
-        C[1:m + 1, m:] = -(A.T @ self.X)
-        for c, v in zip(cols, new):
-            C[1:m + 1, m + c] = -(A.T @ np.broadcast_to(v, (n,)))
-        P = np.diff(np.column_stack([np.zeros(n), link.cdf(U), np.ones(n)]), axis=1)
-        return self.w @ P, np.diff(C, axis=0)
-
-
-def _averages(res, D, w, fast, cols, new):
-    """Mean probabilities and gradient with ``D[:, cols]`` set to ``new`` (any layout)."""
-    if fast is not None:
-        return fast.average(cols, new)
-    edited = D.copy()
-    for c, v in zip(cols, new):
-        edited[:, c] = v
-    return averaged_probabilities(res, edited, w)
-
-
-def _effect(res, D, c, w, binary, siblings, fast):
-    """Effect ``(J,)``, its parameter gradient ``(J, P)`` and the kind of column ``c``."""
-    if binary[c]:
-        cols = [c] + list(siblings)
-        zero = [0.0] * len(cols)
-        (p0, g0), (p1, g1) = (_averages(res, D, w, fast, cols, zero),
-                              _averages(res, D, w, fast, cols, [1.0] + zero[1:]))
-        return p1 - p0, g1 - g0, "change 0 -> 1"
-    h = 1e-4 * max(float(np.std(D[:, c])), 1e-8)
-    g = (_averages(res, D, w, fast, [c], [D[:, c] + h])[1] - _averages(res, D, w, fast, [c], [D[:, c] - h])[1]) / (2 * h)
-    return analytic_marginal_effect(res, D, c, w), g, "derivative"
+def _discrete_changes(res, D, w, groups):
+    """``{column: (effect, gradient)}`` of every 0/1 column, one :func:`level_changes` per group."""
+    out = {}
+    for group in sorted(set(groups.values())):
+        effects, grads, crossed = level_changes(res, D, w, list(group))
+        for c, e, g, x in zip(group, effects, grads, crossed):
+            if x:
+                warnings.warn(f"average marginal effect of {layout_of(res).columns[c]}: cumulative probabilities "
+                              "cross for some rows with the level changed (per-threshold effects used outside the "
+                              "data); the effect is nan", CrossingWarning, stacklevel=4)
+            out[c] = (e, g)
+    return out
 
 
 def average_marginal_effects(res):
@@ -133,14 +256,18 @@ def average_marginal_effects(res):
     layout = layout_of(res)
     w = np.ones(len(tr.y)) if tr.weights is None else tr.weights
     w = w / w.sum()
-    binary = _binary_columns(tr.X)
-    siblings = _sibling_index(res, binary)
-    fast = _ParallelEdits(res, tr.X, w) if layout.is_parallel else None
+    D = np.asarray(tr.X, float)
+    groups = _binary_groups(res, _binary_columns(D))
+    changes = _discrete_changes(res, D, w, groups)
     effects, ses, kinds = [], [], {}
     for c, name in enumerate(layout.columns):
-        eff, grad, kinds[name] = _effect(res, tr.X, c, w, binary, siblings[c], fast)
+        if c in changes:
+            (eff, grad), kinds[name] = changes[c], "change 0 -> 1"
+        else:
+            (eff, grad), kinds[name] = analytic_marginal_effect(res, D, c, w, gradient=True), "derivative"
         effects.append(eff)
-        ses.append(np.sqrt(np.maximum(np.sum((grad @ res.cov) * grad, axis=1), 0.0)))
+        se = np.sqrt(np.maximum(np.sum((grad @ res.cov) * grad, axis=1), 0.0))
+        ses.append(np.where(np.isnan(eff), np.nan, se))
     cols = pd.MultiIndex.from_product([["effect", "std_error"], [str(v) for v in res.levels]],
                                       names=["part", "level"])
     data = np.hstack([np.array(effects), np.array(ses)]) if effects else np.empty((0, len(cols)))
