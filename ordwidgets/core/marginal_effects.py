@@ -78,12 +78,10 @@ def _ends(link, U):
 
 def _mean_probabilities(link, U, F, S, w):
     """Weighted mean category probabilities, each difference taken on its exact side of the median."""
-    n = len(U)
-    lower = np.column_stack([np.full(n, -np.inf), U])
-    Fp = np.column_stack([np.zeros(n), F, np.ones(n)])
-    Sp = np.column_stack([np.ones(n), S, np.zeros(n)])
-    P = np.where(lower >= link.median, Sp[:, :-1] - Sp[:, 1:], Fp[:, 1:] - Fp[:, :-1])
-    return w @ np.maximum(P, 0.0)
+    upper = U[:, :-1] >= link.median  # the lower end of categories 1 .. m - 1
+    inner = np.where(upper, S[:, :-1] - S[:, 1:], F[:, 1:] - F[:, :-1])
+    last = np.where(U[:, -1] >= link.median, S[:, -1], 1.0 - F[:, -1])
+    return np.concatenate([[w @ F[:, 0]], w @ np.maximum(inner, 0.0), [w @ last]])
 
 
 def _column_parts(layout, params, c):
