@@ -31,7 +31,8 @@ per design column of such terms.
 
 **Warm starts.**  Every refit starts at the parallel fit itself (each freed effect set to its
 parallel value at every threshold), which is feasible and close to the answer, so Newton's
-method needs a few steps; the refits share the rows sorted by category once.
+method needs a few steps; the refits share the rows sorted by category once.  The overall
+refit starts at the largest per-term refit instead (:func:`overall_start`).
 
 **Clusters and sampling weights.**  Both tests assume independent rows.  For a fit with a
 cluster-robust covariance (``cluster=``) or sampling weights they are still computed, with a
@@ -104,16 +105,39 @@ def shared_columns(res):
     return sorted_standardised(tr.X, order, bounds, None if tr.weights is None else tr.weights[order])
 
 
-def refit(res, layout, *, columns=None):
+def refit(res, layout, *, columns=None, start=None):
     """Maximum-likelihood fit of ``layout`` on the training rows, started at the fit ``res``.
 
-    ``columns`` (:func:`shared_columns`) may be shared between refits.  Returns the
+    ``columns`` (:func:`shared_columns`) may be shared between refits; ``start`` replaces the
+    warm start at ``res`` (e.g. :func:`overall_start`).  Returns the
     ``EngineFit`` of :func:`~ordwidgets.core.extended_fit.fit_layout` and raises its
     ``CrossingError``.
     """
     tr = res.training_rows()
     return fit_layout(layout, tr.X, tr.y, tr.weights, res.link, warn=False, tol=REFIT_TOL,
-                      start=warm_start(res, layout), columns=columns)
+                      start=warm_start(res, layout) if start is None else start, columns=columns)
+
+
+def overall_start(res, layout, refits):
+    """Start of the overall refit ``layout``: the largest converged per-term refit, extended.
+
+    ``refits`` maps a row label to ``(term layout, EngineFit or None)``.  The per-term optimum
+    with its still-parallel effects repeated per threshold gives the same probabilities, so it
+    is feasible, and it is closer to the answer than the parallel fit (with a 97-level factor,
+    3 Newton steps instead of 7).  Falls back to :func:`warm_start` at ``res``.
+    """
+    done = [(lay, out) for lay, out in refits.values() if out is not None and out.converged]
+    if not done:
+        return warm_start(res, layout)
+    lay, out = max(done, key=lambda pair: pair[0].n_params)
+    return warm_start(_Fitted(out.params, lay), layout)
+
+
+class _Fitted:
+    """Parameters and layout of a refit, in the shape :func:`warm_start` reads."""
+
+    def __init__(self, params, layout):
+        self.params, self.layout = params, layout
 
 
 def training_probabilities(res, layout=None, params=None):
@@ -128,19 +152,20 @@ def training_probabilities(res, layout=None, params=None):
     return np.diff(np.column_stack([np.zeros(n), F, np.ones(n)]), axis=1)
 
 
-def _lr_row(res, layout, base_probs, columns):
+def _lr_row(res, layout, base_probs, columns, start=None):
+    """One table row and the refit (``None`` where the cuts would cross)."""
     tr = res.training_rows()
     try:
-        out = refit(res, layout, columns=columns)
+        out = refit(res, layout, columns=columns, start=start)
     except CrossingError:
-        return {"note": CROSSING_NOTE}
+        return {"note": CROSSING_NOTE}, None
     df = layout.n_params - res.n_params
     stat = max(2.0 * (out.loglik - res.loglik), 0.0)
     change = np.abs(training_probabilities(res, layout, out.params) - base_probs)
     w = np.ones(len(tr.y)) if tr.weights is None else tr.weights
     return {"statistic": stat, "df": df, "p_value": float(stats.chi2.sf(stat, df)),
             "max_prob_change": float(np.max(change)), "mean_prob_change": float(w @ change.max(axis=1) / w.sum()),
-            "note": "" if out.converged else f"refit: {out.message}"}
+            "note": "" if out.converged else f"refit: {out.message}"}, out
 
 
 def _binary_fits(res, cols):
@@ -263,11 +288,15 @@ def proportional_odds_test(res, *, detail=False):
         raise ValueError("with two response levels every effect is trivially parallel: nothing to test")
     base = training_probabilities(res)
     shared = shared_columns(res)
-    rows = {name: _lr_row(res, layout.with_nonparallel(idx), base, shared)
-            for name, idx in tested_terms(res, detail=detail).items()}
+    refits = {name: layout.with_nonparallel(idx) for name, idx in tested_terms(res, detail=detail).items()}
+    rows = {}
+    for name, lay in refits.items():
+        rows[name], out = _lr_row(res, lay, base, shared)
+        refits[name] = (lay, out)
     single = len(rows) == 1 and len(next(iter(tested_terms(res).values()))) == len(layout.location)
+    overall = layout.with_nonparallel(list(layout.location))
     rows[OVERALL] = dict(next(iter(rows.values()))) if single else _lr_row(
-        res, layout.with_nonparallel(list(layout.location)), base, shared)
+        res, overall, base, shared, start=overall_start(res, overall, refits))[0]
     lr = pd.DataFrame.from_dict(rows, orient="index")
     order = ["statistic", "df", "p_value", "max_prob_change", "mean_prob_change", "note"]
     lr = lr.reindex(columns=order)
