@@ -90,6 +90,9 @@ def encode_response(values, levels=None, *, name="response"):
             )
         return s.cat.codes.to_numpy(np.intp), tuple(s.cat.categories)
     if pd.api.types.is_bool_dtype(s.dtype) or pd.api.types.is_integer_dtype(s.dtype):
+        codes = _small_integer_codes(s)
+        if codes is not None:
+            return codes
         uniq = np.sort(s.unique())
         return np.searchsorted(uniq, s.to_numpy()).astype(np.intp), tuple(uniq.tolist())
     if pd.api.types.is_float_dtype(s.dtype) and np.all(np.mod(s.to_numpy(), 1) == 0):
@@ -99,6 +102,29 @@ def encode_response(values, levels=None, *, name="response"):
         f"response {name!r} has unordered values ({s.dtype}); pass levels= in order, "
         "or use an ordered pandas Categorical"
     )
+
+
+#: Widest span of integer codes encoded by a lookup table instead of a sort.
+LOOKUP_SPAN = 65_536
+
+
+def _small_integer_codes(s):
+    """Codes and sorted levels of a numpy integer column whose values span less than
+    :data:`LOOKUP_SPAN`, by a lookup table (one counting pass and one gather; no sort);
+    ``None`` for other columns."""
+    if not (isinstance(s.dtype, np.dtype) and s.dtype.kind in "iu") or not len(s):
+        return None
+    v = s.to_numpy()
+    lo, hi = int(v.min()), int(v.max())
+    if hi - lo >= LOOKUP_SPAN:
+        return None
+    shifted = v.astype(np.intp, copy=False)  # no wrap-around of narrow types below
+    if lo:
+        shifted = shifted - lo
+    present = np.bincount(shifted, minlength=hi - lo + 1) > 0
+    lookup = np.cumsum(present, dtype=np.intp) - 1
+    levels = (np.flatnonzero(present) + lo).astype(s.dtype)
+    return lookup[shifted], tuple(levels.tolist())
 
 
 def _check_levels_agree(s, levels, name):
@@ -193,7 +219,10 @@ def unusable_rows(data, response, columns, w):
 
 def _all_finite(col):
     """A numpy float column with no missing or infinite value, known from one sum (``nan``
-    and ``inf`` propagate; a sum that overflows only sends the column to the cell checks)."""
+    and ``inf`` propagate; a sum that overflows only sends the column to the cell checks).
+    A numpy integer or boolean column cannot hold either."""
+    if isinstance(col.dtype, np.dtype) and col.dtype.kind in "iub":
+        return True
     if not _plain_float(col):
         return False
     with np.errstate(over="ignore", invalid="ignore"):
@@ -237,16 +266,35 @@ def design_matrix(rhs, data):
     state to learn); otherwise formulaic encodes all rows.
     """
     bare = _numeric_column_terms(rhs, data)
-    mm = _model_matrix(rhs, data.iloc[:SPEC_ROWS] if bare else data)
+    if bare:
+        key = (rhs, tuple((c, str(data[c].dtype)) for c in bare))
+        if key not in _BARE_SPECS:
+            mm = _model_matrix(rhs, data.iloc[:SPEC_ROWS])
+            cols = [c for c in mm.columns if c != "Intercept"]
+            ok = [str(c) for c in cols] == bare  # else formulaic read the terms otherwise
+            _remember(key, mm.model_spec if ok else None)
+        spec = _BARE_SPECS[key]
+        if spec is not None:
+            return _column_major(data, bare, len(data)), tuple(bare), spec
+    mm = _model_matrix(rhs, data)
     cols = [c for c in mm.columns if c != "Intercept"]
-    if bare and [str(c) for c in cols] != bare:  # formulaic read the terms otherwise: all rows
-        bare, mm = None, _model_matrix(rhs, data)
-        cols = [c for c in mm.columns if c != "Intercept"]
     nonnum = [c for c in cols if not pd.api.types.is_numeric_dtype(mm[c].dtype)]
     if nonnum:
         raise OrdinalDataError(f"predictor columns are not numeric: {', '.join(nonnum)}")
-    X = _column_major(data, bare, len(data)) if bare else _column_major(mm, cols, len(data))
-    return X, tuple(str(c) for c in cols), mm.model_spec
+    return _column_major(mm, cols, len(data)), tuple(str(c) for c in cols), mm.model_spec
+
+
+#: Model specs of formulas whose terms are all plain numeric columns, by formula and column
+#: types (such a spec learns nothing from the rows); ``None`` where formulaic read the terms
+#: otherwise.  Refits of the same formula (every click of a panel) skip formulaic.
+_BARE_SPECS = {}
+_BARE_SPECS_MAX = 256
+
+
+def _remember(key, spec):
+    if len(_BARE_SPECS) >= _BARE_SPECS_MAX:
+        _BARE_SPECS.pop(next(iter(_BARE_SPECS)))
+    _BARE_SPECS[key] = spec
 
 
 def _model_matrix(rhs, data):

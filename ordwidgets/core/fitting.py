@@ -167,7 +167,7 @@ def plain_problem(formula, data, *, weights=None, levels=None):
     w_sorted = None if prep.weights is None else prep.weights[order]
     sorted_cols = sorted_standardised(prep.X, order, bounds, w_sorted)
     check_collinear_moments(prep.columns, sorted_cols.mean, sorted_cols.cov)
-    design = SortedDesign(sorted_cols.X, bounds, w_sorted)
+    design = SortedDesign(sorted_cols.X, bounds, w_sorted, moments=sorted_cols.moments)
     return PreparedFit(design=design, layout=layout, to_user=user_scale_matrix(layout, sorted_cols.mean, sorted_cols.sd),
                        prep=prep, separated=tuple(sorted_cols.separated(prep.columns)),
                        options={"weights": weights, "levels": levels})

@@ -19,11 +19,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .engine import safe_sd, separated_columns, shifted_moments
+from .engine import safe_sd, separated_columns
 from .links import get_link
 from .probabilities import interval_logprob
 
-__all__ = ["row_terms", "row_logp", "sort_by_category", "sorted_standardised", "SortedColumns", "category_ranges"]
+__all__ = ["row_terms", "row_logp", "sort_by_category", "sorted_standardised", "SortedColumns", "category_ranges",
+           "CategoryMoments", "category_moments"]
 
 
 def row_terms(link, upper=None, lower=None, *, hessian=True):
@@ -176,6 +177,9 @@ class SortedColumns:
     low, high : ndarray, shape (J, p)
         Smallest and largest value of each column (user scale) in each category, over the
         rows with positive weight (separation check).
+    moments : CategoryMoments or None
+        Weighted count, column sums and Gram matrix of the standardised columns in each
+        category.
     """
 
     X: np.ndarray
@@ -184,10 +188,48 @@ class SortedColumns:
     cov: np.ndarray
     low: np.ndarray
     high: np.ndarray
+    moments: "CategoryMoments | None" = None
 
     def separated(self, names):
         """Columns whose non-zero rows all sit in one end category (see ``separated_columns``)."""
         return separated_columns(self.low, self.high, names)
+
+
+@dataclass(frozen=True, eq=False)
+class CategoryMoments:
+    """Weighted count ``n_k``, column sums ``s_k = sum w x`` and Gram matrix
+    ``G_k = sum w x x'`` of the rows of each category: ``(J,)``, ``(J, p)``, ``(J, p, p)``.
+
+    Where every effect is zero, each row of a category has the same per-row terms, so the
+    log-likelihood and its derivatives at that point are these moments times the terms of
+    one row (:meth:`ordwidgets.core.sorted_design.SortedDesign.sums`).
+    """
+
+    counts: np.ndarray
+    sums: np.ndarray
+    grams: np.ndarray
+
+    def standardised(self, centre, sd):
+        """The moments of ``(x - centre) / sd`` from those of ``x``."""
+        n, s, G = self.counts, self.sums, self.grams
+        sums = s - n[:, None] * centre[None, :]
+        cross = np.einsum("ki,j->kij", s, centre)
+        grams = G - cross - cross.transpose(0, 2, 1) + n[:, None, None] * np.outer(centre, centre)[None]
+        return CategoryMoments(n, sums / sd[None, :], grams / np.outer(sd, sd)[None])
+
+
+def category_moments(Xs, bounds, weights=None):
+    """:class:`CategoryMoments` of rows sorted by category (one Gram product per category)."""
+    J, p = len(bounds) - 1, Xs.shape[1]
+    counts, sums, grams = np.zeros(J), np.zeros((J, p)), np.zeros((J, p, p))
+    for k in range(J):
+        block = Xs[bounds[k]:bounds[k + 1]]
+        if weights is None:
+            counts[k], sums[k], grams[k] = len(block), block.sum(axis=0), block.T @ block
+        else:
+            w = weights[bounds[k]:bounds[k + 1]]
+            counts[k], sums[k], grams[k] = w.sum(), w @ block, block.T @ (block * w[:, None])
+    return CategoryMoments(counts, sums, grams)
 
 
 def category_ranges(Xs, bounds, weights=None):
@@ -237,10 +279,13 @@ def sorted_standardised(X, order, bounds, weights=None):
         np.take(X[:, j], order, out=col[:, 0])
         low[:, j:j + 1], high[:, j:j + 1] = category_ranges(col, bounds, weights)
         col -= shift[j]
-    centre, cov = shifted_moments(Xs, weights)
+    moments = category_moments(Xs, bounds, weights)  # per category: the same products as one Gram
+    total = moments.counts.sum()
+    centre = moments.sums.sum(axis=0) / total
+    cov = moments.grams.sum(axis=0) / total - np.outer(centre, centre)
     sd = safe_sd(cov)
     for j in range(p):
         col = Xs[:, j]
         col -= centre[j]
         col /= sd[j]
-    return SortedColumns(Xs, shift + centre, sd, cov, low, high)
+    return SortedColumns(Xs, shift + centre, sd, cov, low, high, moments.standardised(centre, sd))

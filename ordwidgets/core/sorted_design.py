@@ -71,6 +71,10 @@ class SortedDesign:
         Columns with a separate effect at each threshold.
     Z : ndarray, shape (n, r), optional
         Columns of the latent scale ``exp(z'zeta)``.
+    moments : CategoryMoments, optional
+        Per-category count, sums and Gram matrix of ``X`` (with the same weights;
+        :func:`~ordwidgets.core.objective.category_moments`).  With them, the sums at a
+        point where every effect is zero (the engine's start) take no pass over the rows.
     """
 
     X: np.ndarray
@@ -79,6 +83,7 @@ class SortedDesign:
     chunk: int = DEFAULT_CHUNK
     W: np.ndarray | None = None
     Z: np.ndarray | None = None
+    moments: object = None
 
     def __post_init__(self):
         n = len(self.X)
@@ -177,6 +182,8 @@ class SortedDesign:
         link = get_link(link)
         params = np.asarray(params, float)
         parts = self.split(params)
+        if order == 2 and self._at_zero(parts):
+            return _sums_at_zero(link, parts[0], self.moments)
         k_all = len(params)
         acc = _Accumulator(self, np.zeros(k_all) if order >= 1 else None,
                            np.zeros((k_all, k_all)) if order >= 2 else None)
@@ -188,6 +195,12 @@ class SortedDesign:
         if acc.H is not None:
             acc.H += acc.C + acc.C.T
         return ll, acc.g, acc.H
+
+    def _at_zero(self, parts):
+        """Whether the per-category moments give the sums at ``parts`` (all effects zero)."""
+        mo = self.moments
+        return (mo is not None and not (self.W.shape[1] or self.Z.shape[1]) and not np.any(parts[1])
+                and bool(np.all(mo.counts > 0)) and bool(np.all(np.diff(parts[0]) > 0)))
 
     def _ends(self, parts, k, s, e):
         """Interval ends ``(upper, lower)`` of the rows ``s:e`` of category ``k`` (``None``
@@ -222,6 +235,42 @@ class SortedDesign:
         if order >= 1 and np.isfinite(ll):
             acc.add(k, m, self.X[s:e], None if self._S is None else self._S[s:e], w, inv, ends, t)
         return ll
+
+
+def _sums_at_zero(link, theta, moments):
+    """Log-likelihood, gradient and Hessian of a parallel design where ``beta = 0``.
+
+    Every row of category ``k`` then has the ends ``(theta_k, theta_{k-1})``, so its terms
+    are those of one row: the sums are the category's weighted count, column sums and
+    Gram matrix times them (the same chain rule as :class:`_Accumulator`).
+    """
+    m = len(theta)
+    J, p = moments.sums.shape
+    upper = np.append(theta, 0.0)[:, None]  # row k: theta_k (last category: no upper end)
+    lower = np.insert(theta, 0, 0.0)[:, None]
+    t = [row_terms(link, upper=upper[k] if k < m else None, lower=lower[k] if k > 0 else None)
+         for k in range(J)]
+    g, H, C = np.zeros(m + p), np.zeros((m + p, m + p)), np.zeros((m + p, m + p))
+    ll, b = 0.0, slice(m, m + p)
+    for k, tk in enumerate(t):
+        n, s, G = moments.counts[k], moments.sums[k], moments.grams[k]
+        gu, gl, huu, hll, hul = (0.0 if tk[key] is None else float(tk[key][0])
+                                 for key in ("gu", "gl", "huu", "hll", "hul"))
+        ll += n * float(tk["logp"][0])
+        if k < m:
+            g[k] += n * gu
+            H[k, k] += n * huu
+            C[k, b] -= (huu + hul) * s
+        if k > 0:
+            g[k - 1] += n * gl
+            H[k - 1, k - 1] += n * hll
+            C[k - 1, b] -= (hll + hul) * s
+        if 0 < k < m:
+            C[k, k - 1] += n * hul
+        g[b] -= (gu + gl) * s
+        H[b, b] += (huu + hll + 2.0 * hul) * G
+    H += C + C.T
+    return ll, g, H
 
 
 def _combine(A, B):
