@@ -48,6 +48,20 @@ def test_functions_match_scipy_stats(name):
 
 
 @pytest.mark.parametrize("name", LINKS)
+def test_fitter_kernel_matches_scipy_stats_in_both_tails(name):
+    # Reference: scipy.stats (F, S, f) and central differences of its logpdf (f'/f), on both
+    # sides of zero and far into the tails, where the kernel's branch selection matters.
+    link, ref = ow.get_link(name), SCIPY[name]
+    t = np.concatenate([np.linspace(-30, 30, 121), [-0.0, 0.0, np.nextafter(0, 1), -1e-300]])
+    F, S, f, score = link.kernel(t.copy())
+    np.testing.assert_allclose(F, ref.cdf(t), rtol=1e-12, atol=1e-300)
+    np.testing.assert_allclose(S, ref.sf(t), rtol=1e-12, atol=1e-300)
+    np.testing.assert_allclose(f, ref.pdf(t), rtol=1e-11, atol=1e-300)
+    h = 1e-5
+    np.testing.assert_allclose(score, (ref.logpdf(t + h) - ref.logpdf(t - h)) / (2 * h), rtol=1e-6, atol=1e-6)
+
+
+@pytest.mark.parametrize("name", LINKS)
 def test_score_of_density_matches_numerical_derivative(name):
     # Reference: central differences of scipy.stats' logpdf.
     link, ref = ow.get_link(name), SCIPY[name]
@@ -117,3 +131,16 @@ def test_logprob_equals_log_of_probability(name, a, w):
     p = float(interval_probability(name, a, a + w))
     if p > 1e-290:
         assert float(interval_logprob(name, a, a + w)) == pytest.approx(np.log(p), rel=1e-9, abs=1e-12)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.tuples(st.booleans(), st.floats(-1, 1), st.floats(-1, 1)), min_size=1, max_size=40))
+def test_branch_free_pick_equals_numpy_where(rows):
+    # Reference: numpy.where. The arithmetic selection the kernels use must pick the same values.
+    from ordwidgets.core.links import pick
+
+    flag, a, b = (np.array(c) for c in zip(*rows))
+    np.testing.assert_array_equal(pick(flag, a, b), np.where(flag, a, b))
+    with_nan = np.where(flag, a, np.nan)  # nan where the first branch is not taken
+    got = pick(flag, with_nan, np.full_like(b, np.nan))
+    assert np.isnan(got).all()

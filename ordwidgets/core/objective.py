@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .engine import safe_sd, separated_columns
-from .links import get_link
+from .links import get_link, pick
 from .probabilities import interval_logprob
 
 __all__ = ["row_terms", "row_logp", "sort_by_category", "sorted_standardised", "SortedColumns", "category_ranges",
@@ -88,9 +88,9 @@ def _interval_probability(link, upper, lower):
         P = ku[0]
     elif upper is None:
         P = kl[1]
-    else:  # in the kernels' own arrays: P = S(l) - S(u) above the median, else F(u) - F(l)
-        P = np.subtract(ku[0], kl[0], out=ku[0])
-        np.copyto(P, np.subtract(kl[1], ku[1], out=kl[1]), where=lower >= link.median)
+    else:  # P = S(l) - S(u) above the median, else F(u) - F(l) (both differences in [-1, 1])
+        P = pick(lower >= link.median, np.subtract(kl[1], ku[1], out=kl[1]),
+                 np.subtract(ku[0], kl[0], out=ku[0]))
     return P, ku, kl
 
 
@@ -276,7 +276,9 @@ def sorted_standardised(X, order, bounds, weights=None):
     low, high = np.empty((len(bounds) - 1, p)), np.empty((len(bounds) - 1, p))
     for j in range(p):  # column by column while it is in cache: gather, ranges, shift
         col = Xs[:, j:j + 1]
-        np.take(X[:, j], order, out=col[:, 0])
+        # ``order`` is a permutation (always in range): "clip" spares the checked mode's
+        # buffered copy, which doubles the cost of a gather into ``out``
+        np.take(X[:, j], order, out=col[:, 0], mode="clip")
         low[:, j:j + 1], high[:, j:j + 1] = category_ranges(col, bounds, weights)
         col -= shift[j]
     moments = category_moments(Xs, bounds, weights)  # per category: the same products as one Gram
