@@ -491,8 +491,8 @@ def _drop_empty_levels(y, levels, w, response):
 
     Levels whose rows all have weight zero are refused: the weights, not the data, removed them.
     """
-    counts = np.bincount(y, weights=w, minlength=len(levels))
     rows_per = np.bincount(y, minlength=len(levels))
+    counts = rows_per if w is None else np.bincount(y, weights=w, minlength=len(levels))
     zeroed = [levels[i] for i in np.flatnonzero((counts <= 0) & (rows_per > 0))]
     if zeroed:
         raise OrdinalDataError(

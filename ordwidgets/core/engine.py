@@ -38,6 +38,10 @@ and optionally
     independent of a constant rescaling of frequency weights.
 ``start(link)`` -> ndarray
     Starting point (default: the closed-form thresholds-only maximum and zero effects).
+``hessian_sample`` : int
+    With a value ``K > 1``, ``sums(..., hessian_sample=K)`` must accept a Hessian from
+    every ``K``-th row counted ``K`` times (value and gradient exact); the engine asks for
+    one only far from the maximum and never stops on one (default 1: always exact).
 
 The map to the user's scale is a matrix ``A`` passed as ``to_user=`` (``params_user =
 A @ params_internal``; built by :func:`user_scale_matrix` for standardised columns);
@@ -334,19 +338,32 @@ def _unscaled(outcome, unit):
                          outcome.decrement, outcome.status)
 
 
+#: Decrement above which the next point's Hessian may come from a sample of the rows (see
+#: ``rough_above`` of :func:`~ordwidgets.core.optimize.newton_maximize`): the point after it
+#: is then still far enough from the maximum for two exact steps to follow.
+ROUGH_ABOVE = 10.0
+
+
 def _newton(design, link, start, feasible, unit, max_iter, tol, callback):
-    """Newton on ``loglik / unit``: the decrement test then does not depend on the weight scale."""
+    """Newton on ``loglik / unit``: the decrement test then does not depend on the weight scale.
+
+    Designs with a ``hessian_sample`` above 1 are asked for sampled Hessians far from the
+    maximum (every such row's terms counted ``hessian_sample`` times).
+    """
 
     loglik = getattr(design, "loglik", None)
+    sample = int(getattr(design, "hessian_sample", 1))
 
-    def evaluate(x, order):
+    def evaluate(x, order, rough=False):
         if order == 0 and loglik is not None:
             return loglik(link, x) / unit, None, None
-        ll, g, H = design.sums(link, x, order=order)
+        extra = {"hessian_sample": sample} if rough and sample > 1 else {}
+        ll, g, H = design.sums(link, x, order=order, **extra)
         return ll / unit, None if g is None else g / unit, None if H is None else H / unit
 
     report = None if callback is None else (lambda it, x, ll, g: callback(it, x, ll * unit, g * unit))
-    return newton_maximize(evaluate, start, feasible=feasible, max_iter=max_iter, tol=tol, callback=report)
+    return newton_maximize(evaluate, start, feasible=feasible, max_iter=max_iter, tol=tol, callback=report,
+                           rough_above=ROUGH_ABOVE if sample > 1 else None)
 
 
 def _restart_from_probit(first, design, link, feasible, m, unit, max_iter, tol):

@@ -65,6 +65,8 @@ def string_columns(data):
 
 def check_unique(data, names):
     """Refuse columns the model uses that appear more than once in ``data``."""
+    if data.columns.is_unique and all(isinstance(c, str) for c in data.columns):
+        return  # pandas caches the answer on the index: refits of the same frame pay nothing
     counts = pd.Index(map(str, data.columns)).value_counts()
     dup = [n for n in dict.fromkeys(names) if counts.get(n, 0) > 1]
     if dup:

@@ -65,14 +65,16 @@ def ascent_direction(grad, hess):
     return grad / scale, True
 
 
-def newton_maximize(evaluate, start, *, feasible, max_iter=100, tol=1e-12, callback=None):
+def newton_maximize(evaluate, start, *, feasible, max_iter=100, tol=1e-12, callback=None, rough_above=None):
     """Maximise a smooth function with safeguarded Newton steps.
 
     Parameters
     ----------
     evaluate : callable
         ``evaluate(params, order)`` returns ``(value, grad, hess)``; with ``order=0`` only
-        the value is needed (the others may be ``None``).
+        the value is needed (the others may be ``None``).  With ``rough_above`` it is also
+        called as ``evaluate(params, 2, rough=True)``, which may return a Hessian estimated
+        from a sample of the rows (the value and gradient stay exact).
     start : ndarray
         Feasible starting point.
     feasible : callable
@@ -84,6 +86,12 @@ def newton_maximize(evaluate, start, *, feasible, max_iter=100, tol=1e-12, callb
     callback : callable, optional
         Called as ``callback(iteration, params, loglik, grad)`` after each accepted step;
         may raise ``KeyboardInterrupt`` to stop (the caller sees the exception).
+    rough_above : float, optional
+        Points reached by a step whose decrement exceeded this are evaluated with a rough
+        Hessian: far from the maximum the error of the step is dominated by the curvature
+        of the function, not by that of the Hessian, so the path needs no more steps.  The
+        outcome always carries an exact Hessian: convergence is only declared on one, and
+        a rough point where the test would pass is evaluated again exactly.
 
     Returns
     -------
@@ -93,38 +101,55 @@ def newton_maximize(evaluate, start, *, feasible, max_iter=100, tol=1e-12, callb
     ll, g, H = evaluate(x, 2)
     if not np.isfinite(ll):
         return NewtonOutcome(x, ll, g, H, 0, np.inf, "not_finite")
+    rough = False
     dec = np.inf
     for it in range(max_iter + 1):
         d, _ = ascent_direction(g, H)
         dec = 0.5 * float(g @ d)
+        if dec < tol and rough:  # never stop on a rough Hessian: look again, exactly
+            ll, g, H = evaluate(x, 2)
+            rough = False
+            d, _ = ascent_direction(g, H)
+            dec = 0.5 * float(g @ d)
         if dec < tol:
             return NewtonOutcome(x, ll, g, H, it, dec, "converged")
         if it == max_iter:
             break
-        step = _line_search(evaluate, feasible, x, ll, d)
+        take_rough = rough_above is not None and dec > rough_above
+        step = _line_search(evaluate, feasible, x, ll, d, rough=take_rough)
         if step is None:
-            return NewtonOutcome(x, ll, g, H, it, dec, "line_search")
+            return _exact_outcome(evaluate, x, ll, g, H, rough, it, dec, "line_search")
         x, ll, g, H = step
+        rough = take_rough
         if callback is not None:
             callback(it + 1, x, ll, g)
-    return NewtonOutcome(x, ll, g, H, max_iter, dec, "max_iter")
+    return _exact_outcome(evaluate, x, ll, g, H, rough, max_iter, dec, "max_iter")
 
 
-def _line_search(evaluate, feasible, x, ll, d, max_halvings=50):
-    """Halve the step until feasible and not worse; return ``(x, ll, g, H)`` or None."""
+def _exact_outcome(evaluate, x, ll, g, H, rough, iterations, dec, status):
+    """An outcome of a stopped run, with the exact Hessian at ``x``."""
+    if rough:
+        ll, g, H = evaluate(x, 2)
+    return NewtonOutcome(x, ll, g, H, iterations, dec, status)
+
+
+def _line_search(evaluate, feasible, x, ll, d, max_halvings=50, rough=False):
+    """Halve the step until feasible and not worse; return ``(x, ll, g, H)`` or None
+    (``H`` rough if ``rough``)."""
     slack = 1e-12 * max(1.0, abs(ll))
+    full = (lambda z: evaluate(z, 2, rough=True)) if rough else (lambda z: evaluate(z, 2))  # noqa: E731
     alpha = 1.0
     for i in range(max_halvings):
         xn = x + alpha * d
         if feasible(xn):
             if i == 0:
-                lln, gn, Hn = evaluate(xn, 2)
+                lln, gn, Hn = full(xn)
                 if np.isfinite(lln) and lln >= ll - slack:
                     return xn, lln, gn, Hn
             else:
                 lln = evaluate(xn, 0)[0]
                 if np.isfinite(lln) and lln >= ll - slack:
-                    return (xn, *evaluate(xn, 2))
+                    return (xn, *full(xn))
         alpha *= 0.5
     return None
 

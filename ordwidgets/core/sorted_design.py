@@ -20,6 +20,10 @@ from .objective import row_logp, row_terms
 __all__ = ["SortedDesign", "layout_sorted_design", "weighted_gram", "DEFAULT_CHUNK"]
 
 DEFAULT_CHUNK = 131_072
+#: Rows from which a parallel design offers sampled Hessians (every ``HESSIAN_SAMPLE``-th
+#: row), and the sampling step: with fewer rows the sample's own error would cost steps.
+SAMPLED_HESSIAN_ROWS = 50_000
+HESSIAN_SAMPLE = 4
 
 
 def layout_sorted_design(layout, Xs, bounds, weights, mean, sd):
@@ -110,6 +114,14 @@ class SortedDesign:
         return len(self.X) if self.weights is None else int(np.count_nonzero(self.weights))
 
     @property
+    def hessian_sample(self) -> int:
+        """Step of the row sample the engine may ask a Hessian from far from the maximum
+        (:data:`HESSIAN_SAMPLE` for parallel designs of at least
+        :data:`SAMPLED_HESSIAN_ROWS` rows, else 1: exact Hessians only)."""
+        plain = not (self.W.shape[1] or self.Z.shape[1])
+        return HESSIAN_SAMPLE if plain and len(self.X) >= SAMPLED_HESSIAN_ROWS else 1
+
+    @property
     def y(self) -> np.ndarray:
         """Category code of each (sorted) row."""
         return np.repeat(np.arange(self.n_levels), np.diff(self.bounds))
@@ -165,7 +177,7 @@ class SortedDesign:
                 return -np.inf
         return ll
 
-    def sums(self, link, params, *, order=2):
+    def sums(self, link, params, *, order=2, hessian_sample=1):
         """Log-likelihood and, for ``order`` 1 or 2, gradient and Hessian.
 
         Parameters
@@ -174,6 +186,10 @@ class SortedDesign:
         params : ndarray, shape (n_params,)
         order : {0, 1, 2}
             Highest derivative to compute.
+        hessian_sample : int
+            With ``K > 1`` (parallel designs only), the blocks of the Hessian that involve
+            the effects come from every ``K``-th row of each segment counted ``K`` times;
+            the log-likelihood, the gradient and the threshold block stay exact.
 
         Returns
         -------
@@ -185,8 +201,10 @@ class SortedDesign:
         if order == 2 and self._at_zero(parts):
             return _sums_at_zero(link, parts[0], self.moments)
         k_all = len(params)
+        if hessian_sample > 1 and self.hessian_sample == 1:
+            raise ValueError("this design computes exact Hessians only")
         acc = _Accumulator(self, np.zeros(k_all) if order >= 1 else None,
-                           np.zeros((k_all, k_all)) if order >= 2 else None)
+                           np.zeros((k_all, k_all)) if order >= 2 else None, sample=int(hessian_sample))
         ll = 0.0
         for k, s, e in _segments(self.bounds, self.chunk):
             ll += self._segment(link, parts, k, s, e, order, acc)
@@ -328,8 +346,8 @@ class _Accumulator:
     Hessian is ``H + C + C'``.
     """
 
-    def __init__(self, design, g, H):
-        self.g, self.H = g, H
+    def __init__(self, design, g, H, sample=1):
+        self.g, self.H, self.sample = g, H, sample
         self.C = None if H is None else np.zeros_like(H)
         m = design.n_levels - 1
         self.m, self.p, self.q, self.r = m, design.X.shape[1], design.W.shape[1], design.Z.shape[1]
@@ -377,12 +395,18 @@ class _Accumulator:
             huu, hll = np.add(huu, hul, out=huu), np.add(hll, hul, out=hll)
         cu, cl = huu, hll  # d2 logP / (du d.) and (dl d.): the weights of x in each cut's row
         if self.p:
-            g[b] -= X.T @ gsum  # one matrix-vector product each: a product with a few
-            if cu is not None:  # columns waits for BLAS threads on a busy machine
-                C[k, b] -= X.T @ cu
+            # one matrix-vector product each (a product with a few columns waits for BLAS
+            # threads on a busy machine)
+            g[b] -= X.T @ gsum
+            c = _plus(cu, cl) if hul is None else np.add(cu, cl, out=hul)
+            K = self.sample
+            if K > 1:  # the effect blocks from every K-th row, counted K times
+                X, cu, cl, c = X[::K], cu if cu is None else cu[::K], cl if cl is None else cl[::K], c[::K]
+            if cu is not None:
+                C[k, b] -= K * (X.T @ cu)
             if cl is not None:
-                C[k - 1, b] -= X.T @ cl
-            H[b, b] += weighted_gram(X, _plus(cu, cl) if hul is None else np.add(cu, cl, out=hul))
+                C[k - 1, b] -= K * (X.T @ cl)
+            H[b, b] += K * weighted_gram(X, c)
 
     def _add_extended(self, X, S, weigh, t, inv, ends, dests):
         """Non-parallel and scale parts; without a scale (``inv`` is ``None``) the factors
