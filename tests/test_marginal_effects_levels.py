@@ -98,3 +98,55 @@ def test_effects_and_standard_errors_match_brute_force(case):
     np.testing.assert_allclose(ame["std_error"].to_numpy(), se, rtol=2e-4, atol=1e-8)
     assert ame.attrs["kind"]["x"] == "derivative"
     assert all(ame.attrs["kind"][cols[c]] == "change 0 -> 1" for c in factor_cols + binary)
+
+
+
+def test_a_level_moved_outside_its_data_that_crosses_gives_nan_and_a_named_warning():
+    # Per-threshold effects of x and of one site level, set so that the cumulative
+    # probabilities stay ordered on every training row but cross once a row with large x is
+    # moved to that level (the level was only seen at small |x|).  The reference above
+    # decides independently which rows cross (plain scipy.stats CDFs of the documented formula).
+    import dataclasses
+
+    rng = np.random.default_rng(5)
+    n = 600
+    x = rng.uniform(-2.0, 2.0, n)
+    site = np.where(np.abs(x) < 0.5, rng.choice(["w", "n"], n), rng.choice(["n", "e"], n))
+    df = pd.DataFrame({"x": x, "g": rng.integers(0, 2, n), "site": site})
+    df["y"] = np.searchsorted([-1.5, 0.0, 1.5], 0.6 * x - 0.4 * df.g + rng.logistic(size=n))
+    res = ow.fit("y ~ x + g + C(site)", df, nonparallel=["x", "C(site)"])
+    lay, m = res.layout, res.n_thresholds
+    cols = list(lay.columns)
+    target = cols.index("C(site)[T.w]")
+    params = res.params.copy()
+    theta = np.array([-1.5, 0.0, 1.5])
+    params[:m] = theta
+    gamma = np.zeros((len(lay.nonparallel), m))
+    gamma[list(lay.nonparallel).index(cols.index("x"))] = 0.25 * np.arange(m)
+    gamma[list(lay.nonparallel).index(target)] = (theta - theta[0]) - 0.2 * np.arange(m)
+    params[m + len(lay.location):] = gamma.ravel()
+    edited = dataclasses.replace(res, params=params)
+
+    D = np.asarray(edited.training_rows().X, float)
+    factor_cols = [i for i, c in enumerate(cols) if c.startswith("C(site)")]
+
+    def crosses(rows):
+        num = (theta[None, :] - (rows[:, list(lay.location)] @ params[m:m + len(lay.location)])[:, None]
+               - rows[:, list(lay.nonparallel)] @ gamma)
+        return np.any(np.diff(edited.link.dist.cdf(num), axis=1) < 0)
+
+    moved = D.copy()
+    moved[:, factor_cols] = 0.0
+    moved[:, target] = 1.0
+    assert not crosses(D) and crosses(moved)  # the reference: ordered in the data, crossed when moved
+
+    with pytest.warns(ow.CrossingWarning, match=r"C\(site\)\[T\.w\]") as caught:
+        ame = edited.average_marginal_effects()
+    assert len(caught) == 1
+    assert np.isnan(ame.loc["C(site)[T.w]"].to_numpy()).all()
+    w = np.full(len(D), 1.0 / len(D))
+    ref = reference_effects(edited, params, D, w, factor_cols, [cols.index("x")], [cols.index("g")])
+    for c, name in enumerate(cols):
+        if c != target:
+            np.testing.assert_allclose(ame.loc[name, "effect"].to_numpy(), ref[c], atol=1e-7)
+            assert np.isfinite(ame.loc[name, "std_error"].to_numpy()).all()

@@ -192,22 +192,20 @@ class Logit(Link):
         return special.logit(p)
 
     def kernel(self, t):
-        # one exp; the temporaries are reused in place (each fresh array of a large segment
-        # costs page faults); same arithmetic, so the same bits, as the textbook expressions
-        e = np.abs(t)
-        np.negative(e, out=e)
-        np.exp(e, out=e)  # exp(-|t|)
-        big = np.add(e, 1.0)
-        np.divide(1.0, big, out=big)  # 1 / (1 + e)
-        small = np.multiply(e, big)
-        upper = t >= 0
-        F, S = pick(upper, big, small), pick(upper, small, big)  # both in [0, 1]
-        np.multiply(small, big, out=small)  # f = F S
-        np.subtract(1.0, e, out=e)
-        np.multiply(e, big, out=e)
-        np.copysign(e, t, out=e)
-        np.negative(e, out=e)  # f'/f = copysign((1 - e) / (1 + e), -t)
-        return F, S, small, e
+        # F = 1 / (1 + exp(-t)) and S = 1 / (1 + exp(t)) are exact relative to their own size
+        # in both tails (an exp that overflows gives the limit 0), so no branch is needed;
+        # the temporaries are reused in place (each fresh array of a large segment costs
+        # page faults)
+        with np.errstate(over="ignore"):
+            F = np.exp(np.negative(t))
+            S = np.exp(t)
+        F += 1.0
+        np.divide(1.0, F, out=F)
+        S += 1.0
+        np.divide(1.0, S, out=S)
+        f = np.multiply(F, S)
+        score = np.subtract(S, F)  # f'/f = S - F = -tanh(t / 2)
+        return F, S, f, score
 
     def _isf(self, q):
         return -special.logit(q)
