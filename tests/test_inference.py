@@ -155,6 +155,29 @@ def test_compare_refuses_non_nested_and_different_rows():
         ow.compare(a, ow.fit("y ~ x + v", shifted))
 
 
+
+def test_compare_checks_the_rows_of_fits_that_kept_no_training_rows():
+    # Halves of the same size give equal row counts: only the rows themselves tell them apart.
+    df, X, y = small_data(n=200, seed=6)
+    first, second = df.iloc[:100].reset_index(drop=True), df.iloc[100:].reset_index(drop=True)
+    small = ow.fit("y ~ x", first, keep_data=False)
+    with pytest.raises(ow.ComparisonError, match="different rows"):
+        ow.compare(small, ow.fit("y ~ x + v", second, keep_data=False))
+    with pytest.raises(ow.ComparisonError, match="different rows"):
+        ow.compare(ow.fit("y ~ x", first), ow.fit("y ~ x + v", second, keep_data=False))
+    reweighted = ow.fit("y ~ x + v", first, weights=np.linspace(0.5, 2.0, 100), keep_data=False)
+    with pytest.raises(ow.ComparisonError, match="different rows"):
+        ow.compare(small, reweighted)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # the same rows: no refusal and no warning
+        table = ow.compare(small, ow.fit("y ~ x + v", first, keep_data=False))
+        mixed = ow.compare(ow.fit("y ~ x", first), ow.fit("y ~ x + v", first, keep_data=False))
+    # the statistic still comes from the fits' log-likelihoods (reference fits, scipy.optimize)
+    _, ll_small = R.fit(X[:100, :1], y[:100], "logit")
+    _, ll_large = R.fit(X[:100], y[:100], "logit")
+    assert table.loc["larger", "statistic"] == pytest.approx(2 * (ll_large - ll_small), abs=1e-6)
+    assert mixed.loc["larger", "statistic"] == pytest.approx(table.loc["larger", "statistic"], abs=1e-9)
+
 def test_compare_links_ranks_by_aic_with_the_fits_loglik():
     df, _, _ = small_data(seed=6, link="probit")
     table = ow.compare_links("y ~ x + v", df)

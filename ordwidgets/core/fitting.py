@@ -21,6 +21,7 @@ from .links import get_link
 from .objective import sort_by_category, sorted_standardised
 from .sorted_design import SortedDesign
 from .results import FitResult, TrainingData
+from .row_digest import rows_digest
 
 __all__ = ["fit", "fit_dask"]
 
@@ -196,4 +197,5 @@ def _fit_problem(problem, link, *, formula, max_iter, tol, callback, keep_data):
         largest_score=fitted.largest_score, curvature_condition=fitted.curvature_condition, formula=formula,
         response=meta.response, model_spec=meta.model_spec, notes=tuple(meta.notes),
         training=training if keep_data else None, options=options, layout=layout,
+        row_digest=rows_digest(prep.index, prep.y, prep.weights) if prep is not None and not keep_data else None,
     )

@@ -24,6 +24,7 @@ from .extended_fit import layout_design
 from .layout import all_training_rows, layout_of
 from .objective import SortedColumns, sort_by_category
 from .optimize import newton_maximize
+from .row_digest import rows_digest
 from .sandwich import refuse_likelihood_tests
 
 __all__ = ["intervals", "wald_intervals", "profile_intervals", "compare"]
@@ -236,12 +237,35 @@ def _check_same_rows(a, b):
     if a.n_rows != b.n_rows or not np.isclose(a.n_obs, b.n_obs):
         raise ComparisonError(f"fits use different rows ({a.n_rows} and {b.n_rows} rows): refit on the same rows")
     if a.training is None or b.training is None:
+        _check_digests(a, b)
         return
     ta, tb = a.training, b.training
     same_w = (ta.weights is None and tb.weights is None) or (
         ta.weights is not None and tb.weights is not None and np.array_equal(ta.weights, tb.weights))
     if not (ta.index.equals(tb.index) and np.array_equal(ta.y, tb.y) and same_w):
         raise ComparisonError("fits use different rows, responses or weights: refit on the same rows")
+
+
+def _check_digests(a, b):
+    """Same-row check of fits that did not keep their training rows (``keep_data=False``)."""
+    da, db = _digest_of(a), _digest_of(b)
+    if da is not None and db is not None:
+        if da != db:
+            raise ComparisonError("fits use different rows, responses or weights (their row digests differ): "
+                                  "refit on the same rows")
+        return
+    warnings.warn("cannot check that the two fits use the same rows (a fit keeps neither its training rows nor "
+                  "a digest of them): only the row counts agree; make sure both were fitted on the same rows",
+                  UserWarning, stacklevel=4)
+
+
+def _digest_of(res):
+    """The fit's row digest, from its training rows when it kept all of them."""
+    digest = getattr(res, "row_digest", None)
+    tr = res.training
+    if digest is None and tr is not None and len(tr.y) == res.n_rows:
+        digest = rows_digest(tr.index, tr.y, tr.weights)
+    return digest
 
 
 def _check_nested(small, large):

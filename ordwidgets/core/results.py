@@ -87,6 +87,10 @@ class FitResult:
     #: Column layout (:class:`~ordwidgets.core.layout.ModelLayout`): which design columns
     #: are parallel, per-threshold or scale effects (a plain fit: all parallel, no scale).
     layout: object = field(default=None, repr=False)
+    #: Digest of the rows used (index, response codes, weights) when ``training`` is not
+    #: kept (``keep_data=False``), so that :func:`~ordwidgets.core.inference.compare` can
+    #: still check that two fits saw the same rows; ``None`` otherwise.
+    row_digest: str | None = field(default=None, repr=False)
 
     # ---- parameters ------------------------------------------------------------------------
     @property
