@@ -21,7 +21,8 @@ from .layout import cumulative_predictors, end_jacobian, layout_of
 from .probabilities import interval_probability
 
 __all__ = ["probabilities_at", "probability_jacobian", "probability_variances", "prediction_intervals",
-           "averaged_probabilities", "logit_interval", "logit_interval_of_variance", "wald_bounds", "check_level"]
+           "averaged_probabilities", "logit_interval", "logit_interval_of_variance", "wald_bounds", "check_level",
+           "most_likely_levels"]
 
 
 def wald_bounds(estimate, std_error, level):
@@ -63,6 +64,17 @@ def probabilities_at(res, D, params=None, *, layout=None, warn=True):
                           CrossingWarning, stacklevel=3)
         P[crossed] = np.nan
     return P
+
+
+def most_likely_levels(probs, levels):
+    """The level of largest probability in each row of ``probs`` (``n, J``), as objects.
+
+    A row with a missing probability (a missing predictor, cuts that cross) has no most
+    likely level: it gets ``nan``, not the first level.
+    """
+    out = np.asarray(levels, dtype=object)[probs.argmax(axis=1)]
+    out[np.isnan(probs).any(axis=1)] = np.nan
+    return out
 
 
 def probability_jacobian(res, D, params=None):

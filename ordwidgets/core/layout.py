@@ -32,11 +32,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from .arguments import check_thresholds
+from .exceptions import OrdinalDataError
 from .links import get_link
 from .objective import row_terms
 
 __all__ = ["ModelLayout", "ExtendedDesign", "layout_of", "parallel_layout", "scale_name", "per_threshold_name",
-           "effect_groups", "all_training_rows"]
+           "effect_groups", "all_training_rows", "latent_predictor"]
 
 
 def per_threshold_name(column, threshold):
@@ -302,6 +303,28 @@ def location_predictor(layout, params, D):
     X = layout.arrays(D)[0]
     beta = layout.split(params)[1]
     return X @ beta if beta.size else np.zeros(len(X))
+
+
+def latent_predictor(layout, params, D):
+    """``x'beta`` over the parallel location columns, refused when there are none to use.
+
+    The latent predictor of a fit holds its parallel location effects only: per-threshold
+    effects move each cut on its own and scale effects stretch the latent error, so neither
+    has a place on one latent scale.  A fit whose every predictor is per-threshold or scale
+    would give 0 for every row whatever its data, so it is refused.
+
+    Raises
+    ------
+    OrdinalDataError
+        The fit has predictors but no parallel location effect (the message names them).
+    """
+    if layout.columns and not layout.location:
+        parts = [layout.columns[i] for i in (*layout.nonparallel, *layout.scale)]
+        raise OrdinalDataError(
+            "kind='latent' has no single latent scale for this fit: every predictor "
+            f"({', '.join(map(repr, dict.fromkeys(parts)))}) has per-threshold or scale effects and "
+            "none a parallel location effect; use kind='probabilities' or 'cumulative'")
+    return location_predictor(layout, params, D)
 
 
 def error_bounds_of(res, thresholds=None, coefficients=None):

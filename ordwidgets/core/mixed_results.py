@@ -25,6 +25,7 @@ from numpy.polynomial.hermite_e import hermegauss
 from scipy import special, stats
 
 from .design import threshold_labels
+from .effects import most_likely_levels
 from .exceptions import ComparisonError, OrdinalDataError
 from .html_table import html_table
 from .layout import parallel_layout
@@ -188,7 +189,7 @@ class RandomInterceptFit(FitResult):
         cols = [str(v) for v in self.levels]
         probs = self._probabilities(full, X, offset, groups)
         if kind == "most_likely":
-            return pd.Series(np.asarray(self.levels, dtype=object)[probs.argmax(axis=1)], index=index, name=kind)
+            return pd.Series(most_likely_levels(probs, self.levels), index=index, name=kind)
         if kind not in ("probabilities", "cumulative"):
             raise ValueError(f"kind must be 'probabilities', 'cumulative', 'latent' or 'most_likely', got {kind!r}")
         cum = kind == "cumulative"

@@ -8,8 +8,8 @@ import pandas as pd
 from scipy import stats
 
 from .arguments import PREDICT_RULES, check_arguments
-from .effects import prediction_intervals, probabilities_at, wald_bounds
-from .layout import error_bounds_of, location_predictor
+from .effects import most_likely_levels, prediction_intervals, probabilities_at, wald_bounds
+from .layout import error_bounds_of, latent_predictor, location_predictor
 from .links import Link
 from .newdata import new_design
 from .probabilities import interval_logprob
@@ -185,7 +185,10 @@ class FitResult:
         kind : {"probabilities", "cumulative", "latent", "most_likely"}
             Category probabilities (one column per level), cumulative probabilities
             ``P(Y <= j)`` (one column per level), the linear predictor ``x'beta`` or the most
-            likely level.
+            likely level.  ``"latent"`` holds the parallel location effects only (per-threshold
+            and scale effects have no place on one latent scale) and is refused for a fit
+            without any; ``"most_likely"`` is missing (``nan``) for a row whose probabilities
+            are (a missing or infinite predictor, cuts that cross).
         level : float, optional
             With ``kind`` "probabilities" or "cumulative": add delta-method intervals of this
             coverage, computed on the logit scale so they stay in ``[0, 1]``.  The frame then
@@ -196,10 +199,9 @@ class FitResult:
         if level is not None:
             return prediction_intervals(self, data, kind=kind, level=level)
         X = self.design(data)  # built once: formula encoding is the costly part
-        eta = self._eta(X)
-        index = self._index(data, len(eta))
+        index = self._index(data, len(X))
         if kind == "latent":
-            return pd.Series(eta, index=index, name="latent")
+            return pd.Series(latent_predictor(self.layout, self.params, X), index=index, name="latent")
         probs = probabilities_at(self, X)
         cols = [str(v) for v in self.levels]
         if kind == "probabilities":
@@ -207,8 +209,7 @@ class FitResult:
         if kind == "cumulative":
             return pd.DataFrame(np.cumsum(probs, axis=1).clip(0, 1), index=index, columns=cols)
         if kind == "most_likely":
-            return pd.Series(np.asarray(self.levels, dtype=object)[probs.argmax(axis=1)], index=index,
-                             name="most_likely")
+            return pd.Series(most_likely_levels(probs, self.levels), index=index, name="most_likely")
         raise ValueError(f"kind must be 'probabilities', 'cumulative', 'latent' or 'most_likely', got {kind!r}")
 
     def error_bounds(self, thresholds=None, coefficients=None):
