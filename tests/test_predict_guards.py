@@ -1,17 +1,21 @@
-"""Prediction on new rows: missing probabilities and the latent predictor.
+"""Prediction on new rows: numeric factor levels, missing probabilities, the latent predictor
+and infinite values.
 
 Every expected probability comes from the model's definition written here with scipy
 (McCullagh 1980): ``P(Y <= j | x) = F(theta_j - x'beta)``, F the logistic CDF
 (``scipy.stats.logistic``), category probabilities the differences of the cumulative ones,
 evaluated at the fit's own parameters read by name.
 """
+import re
+import warnings
+
 import numpy as np
 import pandas as pd
 import pytest
 from scipy import stats
 
 import ordwidgets as ow
-from ordwidgets.core.exceptions import CrossingWarning, OrdinalDataError
+from ordwidgets.core.exceptions import CrossingWarning, DataWarning, OrdinalDataError, UnseenLevelError
 
 
 def _frame(n=400, seed=0):
@@ -30,6 +34,50 @@ def _reference_probabilities(res, eta):
     cum = stats.logistic.cdf(res.thresholds.to_numpy()[None, :] - eta[:, None])
     ends = np.ones((len(eta), 1))
     return np.diff(np.hstack([0 * ends, cum, ends]), axis=1)
+
+
+def _factor_eta(res, x1, levels):
+    """``x'beta`` with treatment dummies ``v[T.k]`` (level 0 the reference)."""
+    beta = res.coefficients
+    return beta["x1"] * np.asarray(x1, float) + np.array([beta.get(f"v[T.{k}]", 0.0) for k in levels])
+
+
+@pytest.fixture(scope="module")
+def factor_fits():
+    """The same factor held as a categorical of integers and as an object column of integers."""
+    df = _frame()
+    as_categorical = df.assign(v=pd.Categorical(df.v))
+    as_object = df.assign(v=df.v.astype(object))
+    return {"categorical": ow.fit("y ~ x1 + v", as_categorical), "object": ow.fit("y ~ x1 + v", as_object)}
+
+
+@pytest.mark.parametrize("fitted", ["categorical", "object"])
+@pytest.mark.parametrize("dtype", ["int64", "float64", "object", "int8"])
+def test_plain_numbers_in_a_factor_column_are_read_as_the_fitted_levels(factor_fits, fitted, dtype):
+    res = factor_fits[fitted]
+    levels = [0, 1, 2, 3, 4, 3]
+    x1 = [0.0, 0.5, -1.0, 0.0, 2.0, 1.0]
+    new = pd.DataFrame({"x1": x1, "v": pd.Series(levels).astype(dtype)})
+    got = res.predict(new).to_numpy()
+    np.testing.assert_allclose(got, _reference_probabilities(res, _factor_eta(res, x1, levels)),
+                               rtol=1e-10, atol=1e-14)
+    assert new["v"].dtype == np.dtype(dtype)  # the caller's frame is left as it was
+
+
+def test_a_number_that_is_no_fitted_level_is_refused_by_column_and_value(factor_fits):
+    res = factor_fits["categorical"]
+    for value in (7, 3.5):
+        with pytest.raises(UnseenLevelError, match=rf"column 'v' holds levels never seen in fitting: {value!r}"):
+            res.predict(pd.DataFrame({"x1": [0.0], "v": [value]}))
+
+
+def test_probability_difference_reads_numeric_factor_values_as_levels(factor_fits):
+    res = factor_fits["categorical"]
+    scenario, baseline = pd.DataFrame({"x1": [0.0], "v": [3]}), pd.DataFrame({"x1": [0.0], "v": [0]})
+    got = res.probability_difference(scenario, baseline)["difference"].to_numpy()[: len(res.levels)]
+    want = (_reference_probabilities(res, _factor_eta(res, [0.0], [3]))
+            - _reference_probabilities(res, _factor_eta(res, [0.0], [0])))[0]
+    np.testing.assert_allclose(got, want, rtol=1e-9, atol=1e-13)
 
 
 def test_most_likely_is_missing_where_a_predictor_is_missing():
@@ -79,6 +127,25 @@ def test_latent_of_a_mixed_fit_holds_the_parallel_effects_only():
     new = pd.DataFrame({"x1": [-1.0, 0.0, 2.0], "g": [0.0, 1.0, 1.0]})
     want = res.coefficients["x1"] * new.x1.to_numpy()  # x'beta of the parallel part, by hand
     np.testing.assert_allclose(res.predict(new, kind="latent").to_numpy(), want, rtol=1e-12)
+
+
+@pytest.mark.parametrize("column,value,name", [("x1", np.inf, "x1"), ("x1", -np.inf, "x1"),
+                                               ("xp", 0.0, "np.log(xp)")])
+def test_infinite_design_values_give_missing_predictions_with_a_named_warning(column, value, name):
+    df = _frame()
+    res = ow.fit("y ~ x1 + np.log(xp)", df)
+    new = pd.DataFrame({"x1": [0.5, 0.5], "xp": [2.0, 2.0]})
+    new.loc[0, column] = value
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # numpy's own note on log(0)
+        with pytest.warns(DataWarning, match=rf"infinite design values .*'{re.escape(name)}': 1"):
+            got = res.predict(new).to_numpy()
+        with pytest.warns(DataWarning, match=rf"'{re.escape(name)}'"):
+            labels = res.predict(new, kind="most_likely")
+    assert np.isnan(got[0]).all() and pd.isna(labels.iloc[0])
+    beta = res.coefficients
+    eta = beta["x1"] * 0.5 + beta["np.log(xp)"] * np.log(2.0)
+    np.testing.assert_allclose(got[1], _reference_probabilities(res, [eta])[0], rtol=1e-10)
 
 
 def test_most_likely_of_a_random_intercept_fit_is_missing_where_a_predictor_is_missing():

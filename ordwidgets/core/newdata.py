@@ -4,9 +4,12 @@ A factor level never seen in fitting (or a missing value in a factor) has no fit
 encoding it as all-zero dummies would quietly give the reference level's answer.  So
 :func:`new_design` refuses such rows with an
 :class:`~ordwidgets.core.exceptions.UnseenLevelError` naming the column and the values, and
-refuses missing columns and numbers given as text.  Missing values in a numeric column give
-``nan`` rows (the honest answer).  To predict for the other rows, drop or recode the
-offending ones first (the message says which values they hold).
+refuses missing columns and numbers given as text.  A factor column is read onto the fitted
+levels by value (a plain integer column ``3`` is the fitted level ``3``), never as a number.
+Missing values in a numeric column give ``nan`` rows (the honest answer); infinite design
+values (``inf`` in a column, ``np.log(0)``) give ``nan`` rows too, with a
+:class:`~ordwidgets.core.exceptions.DataWarning` naming the columns.  To predict for the
+other rows, drop or recode the offending ones first (the message says which values they hold).
 """
 from __future__ import annotations
 
@@ -16,7 +19,7 @@ import weakref
 import numpy as np
 import pandas as pd
 
-from .exceptions import ArgumentError, OrdinalDataError, UnseenLevelError
+from .exceptions import ArgumentError, DataWarning, OrdinalDataError, UnseenLevelError
 from .naming import check_unique, factors_of, string_columns
 
 __all__ = ["new_design", "prediction_frame"]
@@ -48,7 +51,25 @@ def new_design(res, data, columns):
             raise UnseenLevelError(f"the new data hold factor levels not seen in fitting: {w.message}")
         if not issubclass(w.category, (FutureWarning, DeprecationWarning)) and "Categorical" not in str(w.message):
             warnings.warn(w.message, w.category, stacklevel=3)
-    return mm[list(columns)].to_numpy(float)
+    return _infinite_rows_missing(mm[list(columns)].to_numpy(float), columns)
+
+
+def _infinite_rows_missing(X, columns):
+    """``X`` with every row holding an infinite value set to ``nan``, warned by column.
+
+    Fitting drops such rows with a DataWarning; a prediction keeps the row and gives it no
+    answer, like a row with a missing value, instead of certain 0/1 probabilities.
+    """
+    inf = np.isinf(X)
+    if not inf.any():
+        return X
+    rows = inf.any(axis=1)
+    detail = ", ".join(f"{c!r}: {int(k)}" for c, k in zip(columns, inf.sum(axis=0)) if k)
+    warnings.warn(f"{int(rows.sum())} of {len(X)} rows of the new data have infinite design values "
+                  f"(rows per column: {detail}; rows at positions {_positions(rows)}); their "
+                  "predictions are nan", DataWarning, stacklevel=4)
+    X[rows] = np.nan
+    return X
 
 
 def prediction_frame(res, data):
@@ -65,15 +86,27 @@ def prediction_frame(res, data):
         raise OrdinalDataError(f"the new data lack columns the model uses: {', '.join(map(repr, missing))} "
                                f"(available: {', '.join(map(repr, map(str, data.columns[:20])))})")
     check_unique(data, needed)
-    for var, categories in factors:
-        _check_levels(var, data[var], categories)
+    mapped = {}
+    for var, categories, lookup in factors:
+        codes = _check_levels(var, data[var], categories)
+        if lookup:
+            mapped[var] = pd.Categorical.from_codes(codes, categories=categories)
     for var in numeric:
         _check_numeric(var, data[var])
+    if mapped:  # a shallow copy: the caller's frame is left as it was
+        data = data.copy(deep=False)
+        for var, values in mapped.items():
+            data[var] = values
     return data
 
 
 def _plan(res):
-    """Columns the fit reads, its single-column factors with their levels, its numeric columns."""
+    """Columns the fit reads, its single-column factors, its numeric columns.
+
+    A factor is ``(column, fitted levels, lookup)``; ``lookup`` is true when the column is
+    a formula term by itself and no other term reads it, so that the new column may be
+    replaced by a categorical of the fitted levels.
+    """
     spec = res.model_spec
     if spec is None:
         return None
@@ -82,11 +115,15 @@ def _plan(res):
         terms = factors_of(spec.formula)
         needed = sorted({v for t in terms for f in t for v in f.variables})
         factors, numeric = [], []
-        for f in {f for t in terms for f in t}:
+        distinct = {f for t in terms for f in t}
+        computed = {v for f in distinct if f.method != "lookup" for v in f.variables}
+        for f in distinct:
             kind, info = state.get(f.expr, (None, {}))
             kind = getattr(kind, "value", kind)
             if kind == "categorical" and len(f.variables) == 1:
-                factors.append((next(iter(f.variables)), list(info.get("categories", []))))
+                var = next(iter(f.variables))
+                lookup = f.method == "lookup" and var not in computed
+                factors.append((var, list(info.get("categories", [])), lookup))
             elif kind == "numerical" and f.method == "lookup":
                 numeric.append(f.expr)
         _PLANS[res] = (needed, sorted(factors, key=lambda x: x[0]), sorted(numeric))
@@ -94,13 +131,17 @@ def _plan(res):
 
 
 def _check_levels(var, values, categories):
+    """Codes of ``values`` among the fitted ``categories`` (matched by value: ``3`` and
+    ``3.0`` are the level ``3``); refuses missing values and values that are no fitted level.
+    """
     missing = values.isna().to_numpy()
     if missing.any():
         raise UnseenLevelError(
             f"column {var!r} has {int(missing.sum())} missing value(s) (rows at positions "
             f"{_positions(missing)}); the fit has no effect for a missing level: fill or drop those rows"
         )
-    unseen = ~values.isin(categories).to_numpy()
+    codes = pd.Index(categories).get_indexer(values)
+    unseen = codes < 0
     if unseen.any():
         found = pd.Series(values.to_numpy()[unseen]).value_counts()
         shown = ", ".join(f"{v!r} ({n} rows)" for v, n in found.head(8).items())
@@ -108,6 +149,7 @@ def _check_levels(var, values, categories):
             f"column {var!r} holds levels never seen in fitting: {shown}; fitted levels: "
             f"{', '.join(map(repr, categories[:20]))}. Drop or recode those rows before predicting"
         )
+    return codes
 
 
 def _check_numeric(var, values):
