@@ -119,3 +119,28 @@ def test_separation_is_found_for_extended_fits_too():
     with pytest.warns(ow.SeparationWarning, match=r"\[T\.c\]"):
         res = ow.fit("y ~ x + C(g)", df, nonparallel=["x"])
     assert not res.converged
+
+
+def test_a_scale_effect_that_runs_away_is_flagged_and_its_profile_does_not_crash():
+    # A 0/1 scale column that is 1 only on rows of one middle category: the spread of those
+    # rows can shrink to zero, so the independent likelihood (tests/reference_extended.py,
+    # scipy.stats CDFs) keeps rising as the scale effect goes to minus infinity -- no MLE.
+    from . import reference_extended as RX
+
+    rng = np.random.default_rng(0)
+    n = 400
+    x1 = rng.normal(size=n)
+    y = np.digitize(0.8 * x1 + rng.logistic(size=n), [-1.0, 0.5, 2.0])
+    s = np.zeros(n)
+    s[rng.choice(np.flatnonzero(y == 1), 30, replace=False)] = 1.0
+    df = pd.DataFrame({"y": y, "x1": x1, "s": s})
+    with pytest.warns(ow.SeparationWarning, match="scale: s"):
+        res = ow.fit("y ~ x1", df, scale_by=["s"])
+    assert not res.converged
+    empty = np.empty((n, 0))
+    ray = [RX.loglik(np.r_[res.params[:-1], z], x1[:, None], empty, s[:, None], y, 3, "logit")
+           for z in (-2.0, -4.0, -8.0)]
+    assert ray[0] < ray[1] < ray[2] <= 0.0  # the reference: rising along the scale effect
+    table = res.intervals(method="profile")  # used to fail on a non-finite profile point
+    lo, hi = table.loc["x1"]
+    assert lo < res.params[res.names.index("x1")] < hi

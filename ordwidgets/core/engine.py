@@ -69,6 +69,10 @@ __all__ = ["Design", "EngineFit", "PreparedFit", "maximise", "check_enough_rows"
 #: estimate running away (common practice, no source for the exact cut-offs).
 SEPARATION_CUTOFF = 8.0
 
+#: Condition number of ``-H`` beyond which its inverse is not trusted (about 1e-4 of the
+#: reciprocal of double precision's epsilon: common practice, no source).
+ILL_CONDITIONED = 1e12
+
 
 class Design:
     """Documentation of the design protocol (see the module docstring); not a base class."""
@@ -289,12 +293,19 @@ def separated_columns(low, high, names):
     return out
 
 
-def _runaway(params, hess, m, names):
-    """Estimates huge on the internal (standardised) scale and not determined (|z| < 2)."""
+def _runaway(params, hess, m, names, condition):
+    """Estimates huge on the internal (standardised) scale and not determined (|z| < 2).
+
+    Where ``-H`` is numerically singular (its ``condition`` number beyond :data:`ILL_CONDITIONED`)
+    its inverse says nothing about the standard errors, so every huge estimate is flagged:
+    a scale effect running to minus infinity (rows of one category fitted with a vanishing
+    spread) leaves such a Hessian with a tiny apparent standard error.
+    """
+    singular = not condition < ILL_CONDITIONED  # ``inf`` when -H is not positive definite
     with np.errstate(invalid="ignore"):
         se = np.sqrt(np.diag(np.linalg.pinv(-hess)))
     return [n for n, v, s in zip(names[m:], params[m:], se[m:])
-            if abs(v) > SEPARATION_CUTOFF and not abs(v) > 2 * s]
+            if abs(v) > SEPARATION_CUTOFF and (singular or not abs(v) > 2 * s)]
 
 
 def separation_message(flagged):
@@ -422,7 +433,7 @@ def maximise(design, link, *, to_user=None, names=None, separated=(), max_iter=1
         outcome = _restart_from_probit(outcome, design, lk, feasible, m, unit, max_iter, tol)
     converged, message, condition = check_convergence(outcome, what=what, warn=False)
     outcome = _unscaled(outcome, unit)
-    runaway = _runaway(outcome.params, outcome.hess, m, names) if np.all(np.isfinite(outcome.hess)) else []
+    runaway = _runaway(outcome.params, outcome.hess, m, names, condition) if np.all(np.isfinite(outcome.hess)) else []
     if not converged and explain_failure is not None and (not warn or not runaway):
         explain_failure(outcome)  # e.g. crossing cuts: a more specific refusal than separation
     sep_message = separation_message(list(separated) + [n for n in runaway if n not in " ".join(separated)])

@@ -86,7 +86,8 @@ class _Profile:
         self.solved.append((t, full))
         at, slope = last.get("slope", (None, None))
         if at is None or not np.array_equal(at, out.params):
-            slope = float(self.design.sums(link, full, order=1)[1][self.k])
+            g = self.design.sums(link, full, order=1)[1]
+            slope = np.nan if g is None else float(g[self.k])  # nan: not finite there
         return out.loglik, slope
 
     def signed_root(self, t):
