@@ -150,3 +150,22 @@ def test_a_level_moved_outside_its_data_that_crosses_gives_nan_and_a_named_warni
         if c != target:
             np.testing.assert_allclose(ame.loc[name, "effect"].to_numpy(), ref[c], atol=1e-7)
             assert np.isfinite(ame.loc[name, "std_error"].to_numpy()).all()
+
+
+def test_a_variable_that_enters_several_terms_is_named_in_a_warning():
+    # The row of design column x holds I(x ** 2) and x:g fixed; changing x itself moves them
+    # too.  Central differences of the averaged predictions in the data variable (the
+    # model's definition; predict re-encodes the formula) differ from that row, hence the warning.
+    df = factor_data()
+    res = ow.fit("y ~ x + I(x ** 2) + g + x:g", df)
+    with pytest.warns(UserWarning, match=r"x also enters I\(x \*\* 2\), x:g") as caught:
+        ame = res.average_marginal_effects()
+    assert any("g also enters x:g" in str(w.message) for w in caught)
+    h = 1e-5
+    whole = (res.predict(df.assign(x=df.x + h)).mean() - res.predict(df.assign(x=df.x - h)).mean()) / (2 * h)
+    assert np.abs(whole.to_numpy() - ame.loc["x", "effect"].to_numpy()).max() > 1e-3
+    plain = ow.fit("y ~ x + g + C(site)", df)
+    import warnings
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", UserWarning)
+        plain.average_marginal_effects()  # every variable in one term: no warning

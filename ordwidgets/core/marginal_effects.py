@@ -238,6 +238,32 @@ def _discrete_changes(res, D, w, groups):
     return out
 
 
+def _shared_variables(res):
+    """``{design column: other terms}`` for columns that are a data variable which also
+    enters other formula terms (``x`` beside ``I(x ** 2)`` or ``x:z``): their row is the
+    effect of that column with the other terms held fixed, not of changing the variable."""
+    spec = getattr(res, "model_spec", None)
+    by_term = getattr(spec, "term_variables", None) if spec is not None else None
+    if not by_term:
+        return {}
+    columns = set(layout_of(res).columns)
+    out = {}
+    for term, variables in by_term.items():
+        for v in variables:
+            if v in columns and str(term) != v:
+                out.setdefault(v, []).append(str(term))
+    return out
+
+
+def _warn_held_fixed(res):
+    shared = _shared_variables(res)
+    if shared:
+        detail = "; ".join(f"{v} also enters {', '.join(terms)}" for v, terms in shared.items())
+        warnings.warn(f"average marginal effects are per design column with the other columns held fixed: "
+                      f"{detail}; the row of such a column is not the effect of changing the variable itself",
+                      UserWarning, stacklevel=4)
+
+
 def average_marginal_effects(res):
     """Average marginal effect of each design column on each category probability.
 
@@ -246,10 +272,13 @@ def average_marginal_effects(res):
     Returns
     -------
     pandas.DataFrame
-        One row per design column; columns a two-level MultiIndex ``(part, level)`` with
+        One row per design column (a warning names columns whose variable also enters
+        other terms, such as ``x`` beside ``I(x ** 2)``: their row holds those terms
+        fixed); columns a two-level MultiIndex ``(part, level)`` with
         ``part`` in ``"effect"``, ``"std_error"``; ``frame.attrs["kind"]`` says which rows are
         derivatives and which discrete changes.
     """
+    _warn_held_fixed(res)
     tr = res.training_rows()
     layout = layout_of(res)
     w = np.ones(len(tr.y)) if tr.weights is None else tr.weights
