@@ -19,11 +19,12 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
+import pandas as pd
 
 from .exceptions import ArgumentError, ThresholdError, UnknownLinkError
 from .links import LINKS, Link
 
-__all__ = ["Rule", "check_arguments", "check_keys", "check_position", "check_thresholds", "integer", "real", "one_of",
+__all__ = ["Rule", "aligned_values", "check_arguments", "check_keys", "check_position", "check_thresholds", "integer", "real", "one_of",
            "optional", "either", "FIT_RULES", "PREDICT_RULES", "STATE_OPTION_RULES", "KINDS"]
 
 
@@ -183,6 +184,53 @@ def check_keys(where, rules, mapping):
 def check_position(where, name, value, size):
     """Refuse a position that is not an integer in ``0..size-1`` (negative ones too)."""
     check_arguments(where, {name: integer(0, size - 1)}, {name: value})
+
+
+def aligned_values(where, name, values, index):
+    """The values of a per-row argument in the order of ``index``: the one alignment rule.
+
+    Arrays and lists are taken by position.  A pandas Series is taken by its labels: as it
+    is when its index equals ``index`` (same labels, same order), else re-ordered onto
+    ``index`` when every label of ``index`` is in its index (a shuffled or larger Series).
+    Labels cannot be matched when some are missing, or when either index repeats a label;
+    then the argument is refused rather than read by position.
+
+    Parameters
+    ----------
+    where : str
+        Name of the entry point, the first word of the message.
+    name : str
+        Name of the argument (``"weights"``, ``"cluster"``, ``"x"``).
+    values : array_like or pandas.Series
+    index : pandas.Index
+        Labels of the rows the values belong to (the data's or the fitted rows' index).
+
+    Returns
+    -------
+    ndarray or pandas.Series
+        An array as given (its length is the caller's rule), or the Series on ``index``
+        (its dtype kept, a categorical stays one).
+
+    Raises
+    ------
+    ArgumentError
+        A Series whose labels do not cover ``index`` or cannot be matched one to one.
+    """
+    if not isinstance(values, pd.Series):
+        return np.asarray(values)
+    if values.index.equals(index):
+        return values
+    if not (values.index.is_unique and index.is_unique):
+        raise ArgumentError(f"{where}: {name} is a pandas Series whose index differs from the data's and one of "
+                            "them repeats labels, so its rows cannot be matched; pass an array (taken by position) "
+                            "or a Series with the data's index")
+    missing = index.difference(values.index, sort=False)
+    if len(missing):
+        shown = ", ".join(map(repr, missing[:3])) + (" ..." if len(missing) > 3 else "")
+        raise ArgumentError(f"{where}: {name} is a pandas Series without the labels of {len(missing)} of the "
+                            f"{len(index)} rows ({shown}); give it the data's index, or pass an array "
+                            "(taken by position)")
+    return values.reindex(index)
 
 
 def _show(value) -> str:

@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from .arguments import aligned_values
 from .exceptions import CollinearityError, DataWarning, OrdinalDataError
 from .naming import check_unique, parsed_terms, required_columns, string_columns
 
@@ -154,6 +155,11 @@ def check_mixed_types(data, columns):
 
 
 def weights_array(weights, data):
+    """The weights of the rows of ``data`` as a Series on its index (``None`` unweighted).
+
+    ``weights`` is a column name, an array (by position) or a Series (by its labels, see
+    :func:`~ordwidgets.core.arguments.aligned_values`).
+    """
     if weights is None:
         return None
     if isinstance(weights, str):
@@ -161,7 +167,7 @@ def weights_array(weights, data):
             raise OrdinalDataError(f"weights column {weights!r} is not in the data")
         w = data[weights]
     else:
-        values = np.asarray(weights)
+        values = np.asarray(aligned_values("fit", "weights", weights, data.index))
         if values.ndim != 1 or len(values) != len(data):
             raise OrdinalDataError(f"weights has shape {values.shape} for {len(data)} rows; "
                                    "give one weight per row (or a column name)")

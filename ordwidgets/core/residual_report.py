@@ -14,6 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from .arguments import aligned_values
 from .diagnostics import Axis, SortedDraws, ks_from_sorted, qq_from_sorted, display_rows, moment_table
 from .residuals import ReferenceDistribution, draw_surrogate, whole_counts
 
@@ -188,6 +189,7 @@ def _resolve_x(res, x):
             raise KeyError(f"x={x!r} is not a design column; choose one of {', '.join(columns) or '(none)'} "
                            "or pass an array with one value per training row")
         x = frame[x]
+    x = aligned_values("residual_diagnostics", "x", x, res.training.index)
     name = str(getattr(x, "name", None) or "x")
     if len(x) != res.n_training:
         raise ValueError(f"x must have one value per training row ({res.n_training}), got {len(x)} values")

@@ -26,6 +26,7 @@ import dataclasses
 import numpy as np
 import pandas as pd
 
+from .arguments import aligned_values
 from .exceptions import OrdinalDataError
 from .links import get_link
 from .probabilities import interval_logprob
@@ -128,12 +129,15 @@ def _differenced_jacobians(res, lower, upper, step):
 
 
 def cluster_labels(res, cluster, data):
-    """Cluster label of each training row of ``res`` from a column name or an array."""
+    """Cluster label of each training row of ``res`` from a column name, an array (by
+    position: one per row of ``data`` or per training row) or a Series (by its labels)."""
     index = res.training.index
     if isinstance(cluster, str):
         if data is None or cluster not in data.columns:
             raise OrdinalDataError(f"cluster column {cluster!r} is not in the data")
         labels = data.loc[index, cluster]
+    elif isinstance(cluster, pd.Series) and not (data is not None and cluster.index.equals(data.index)):
+        labels = aligned_values("fit", "cluster", cluster, index)
     else:
         arr = np.asarray(cluster)
         if data is not None and len(arr) == len(data):

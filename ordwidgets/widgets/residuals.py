@@ -188,8 +188,8 @@ class ResidualPanel(PanelBase):
         column = self.state.frame[name]
         if self.state.is_categorical(name):
             levels = grid_values(column, True)
-            return pd.Series(pd.Categorical(column.to_numpy(), categories=levels), name=name)
-        return pd.Series(column.to_numpy(float), name=name)
+            return pd.Series(pd.Categorical(column.to_numpy(), categories=levels), index=column.index, name=name)
+        return pd.Series(column.to_numpy(float), index=column.index, name=name)
 
     def x_values(self):
         """Values of the chosen x variable for every fitted row, and tick labels if categorical."""

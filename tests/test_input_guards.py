@@ -1,0 +1,86 @@
+"""Fitting inputs that used to give silent wrong answers: per-row Series read by position,
+the response used as its own predictor, a random intercept of one group, integer
+arithmetic that wraps around inside formula terms.
+
+Numeric checks compare with independent fits: ``tests.reference.fit`` (the likelihood of
+McCullagh 1980 eq. 2.3, P(Y <= j) = F(theta_j - x'beta), maximised by scipy.optimize) on
+arrays built here with numpy, or the same fit given correctly aligned inputs.
+"""
+import numpy as np
+import pandas as pd
+import pytest
+
+import ordwidgets as ow
+from ordwidgets.core.exceptions import ArgumentError, DataWarning
+
+from . import reference as R
+
+
+def frame(seed=0, n=240):
+    """Rows with an index that is not 0..n-1, integer columns and a latent-variable response."""
+    rng = np.random.default_rng(seed)
+    x0, x1 = rng.normal(size=(2, n))
+    site = rng.integers(1, 5, n)
+    lat = 0.8 * x0 - 0.5 * x1 + 0.3 * site + rng.logistic(size=n)
+    grade = np.digitize(lat, [-0.5, 0.8, 2.0])
+    return pd.DataFrame({"x0": x0, "x1": x1, "site": site, "w": rng.uniform(0.5, 3.0, n), "grade": grade},
+                        index=np.arange(n) + 1000)
+
+
+def shuffled(series, seed=1):
+    return series.sample(frac=1, random_state=seed)
+
+
+# --- 1. per-row Series are matched by their labels -------------------------------------------
+
+def test_shuffled_weights_series_is_aligned_on_the_index():
+    df = frame()
+    res = ow.fit("grade ~ x0 + x1", df, weights=shuffled(df["w"]))
+    # reference: the likelihood maximised by scipy with each row's own weight
+    params, loglik = R.fit(df[["x0", "x1"]].to_numpy(), df["grade"].to_numpy(), "logit", weights=df["w"].to_numpy())
+    np.testing.assert_allclose(res.params, params, rtol=1e-5, atol=1e-7)
+    assert res.loglik == pytest.approx(loglik, rel=1e-9)
+    # an array keeps its positional meaning: the shuffled values as an array are another fit
+    by_position = ow.fit("grade ~ x0 + x1", df, weights=shuffled(df["w"]).to_numpy())
+    assert abs(by_position.loglik - loglik) > 1e-3
+
+
+def test_weights_series_without_the_data_labels_is_refused():
+    df = frame()
+    foreign = pd.Series(df["w"].to_numpy(), index=[f"r{i}" for i in range(len(df))])
+    with pytest.raises(ArgumentError, match=r"weights is a pandas Series without the labels of 240 of the 240 rows"):
+        ow.fit("grade ~ x0 + x1", df, weights=foreign)
+    repeated = pd.Series(df["w"].to_numpy(), index=np.r_[df.index[:-1], df.index[0]])
+    with pytest.raises(ArgumentError, match="weights .* repeats labels"):
+        ow.fit("grade ~ x0 + x1", df, weights=repeated)
+
+
+def test_shuffled_cluster_series_is_aligned_on_the_index():
+    df = frame(seed=2)
+    labels = pd.Series(np.arange(len(df)) // 12, index=df.index)
+    res = ow.fit("grade ~ x0 + x1", df, cluster=shuffled(labels))
+    # reference: the same robust fit with the labels in the data's own order
+    aligned = ow.fit("grade ~ x0 + x1", df, cluster=labels.to_numpy())
+    np.testing.assert_allclose(res.cov, aligned.cov, rtol=1e-12)
+    positional = ow.fit("grade ~ x0 + x1", df, cluster=shuffled(labels).to_numpy())
+    assert not np.allclose(positional.cov, aligned.cov, rtol=1e-3)  # the check can tell them apart
+    with pytest.raises(ArgumentError, match="cluster is a pandas Series without the labels"):
+        ow.fit("grade ~ x0 + x1", df, cluster=labels.reset_index(drop=True))
+
+
+def _tests(diagnostics):
+    return diagnostics.tests[["statistic", "p_value"]].to_numpy(float)
+
+
+def test_residual_x_series_is_aligned_on_the_fitted_rows():
+    df = frame(seed=3)
+    df.loc[df.index[:7], "x1"] = np.nan  # rows dropped: the fitted rows are a subset of the frame
+    with pytest.warns(DataWarning, match="dropped 7 rows"):
+        res = ow.fit("grade ~ x0 + x1", df)
+    kept = df["x1"].notna().to_numpy()
+    reference = res.residual_diagnostics(x=df["site"].to_numpy()[kept].astype(float), seed=4)
+    for x in (shuffled(df["site"]), df["site"]):  # reordered, and the whole frame's column
+        got = res.residual_diagnostics(x=x, seed=4)
+        np.testing.assert_allclose(_tests(got), _tests(reference), rtol=1e-12, equal_nan=True)
+    with pytest.raises(ArgumentError, match="x is a pandas Series without the labels of 233 of the 233 rows"):
+        res.residual_diagnostics(x=df["site"].reset_index(drop=True), seed=4)
