@@ -84,3 +84,19 @@ def test_residual_x_series_is_aligned_on_the_fitted_rows():
         np.testing.assert_allclose(_tests(got), _tests(reference), rtol=1e-12, equal_nan=True)
     with pytest.raises(ArgumentError, match="x is a pandas Series without the labels of 233 of the 233 rows"):
         res.residual_diagnostics(x=df["site"].reset_index(drop=True), seed=4)
+
+
+# --- 2. the response is never its own predictor --------------------------------------------
+
+@pytest.mark.parametrize("options, where", [
+    ({"formula": "grade ~ x0 + grade"}, "in the formula"),
+    ({"formula": "grade ~ x0 + I(grade ** 2)"}, "in the formula"),
+    ({"formula": "grade ~ x0 + x1", "scale_by": ["grade"]}, "in scale_by="),
+    ({"formula": "grade ~ x0 + x1", "nonparallel": ["grade"]}, "in nonparallel="),
+    ({"formula": "grade ~ x0 + x1", "random_intercepts": ["grade"]}, "in random_intercepts="),
+])
+def test_response_as_a_predictor_is_refused(options, where):
+    df = frame()
+    formula = options.pop("formula")
+    with pytest.raises(ow.OrdinalDataError, match=rf"the response 'grade' is also used as a predictor \({where}\)"):
+        ow.fit(formula, df, **options)

@@ -23,7 +23,7 @@ import pandas as pd
 
 from .dask_tasks import (PartitionPlan, design_sums, formula_input, moment_partition, prepared_partition,
                          scan_partition, sums_partition)
-from .design import (PreparedData, design_matrix, required_columns,
+from .design import (PreparedData, check_response_not_used, design_matrix, required_columns,
                      empty_levels, encode_response, split_formula, threshold_labels, unusable_notes)
 from .engine import PreparedFit, check_enough_rows, safe_sd, user_scale_matrix
 from .extended_fit import (as_names, build_layout, check_layout_columns, crossing_report, layout_separation,
@@ -175,6 +175,8 @@ def _plan(formula, data, weights, scale_by):
     if weights is not None and weights not in data.columns:
         raise OrdinalDataError(f"weights column {weights!r} is not in the data")
     columns = required_columns(rhs, data)
+    check_response_not_used(response, columns, "in the formula")
+    check_response_not_used(response, scale_by, "in scale_by=")
     extra = [n for n in scale_by if n in data.columns and n not in columns]
     if extra:
         rhs = " + ".join([rhs] + [f"`{n}`" for n in extra])

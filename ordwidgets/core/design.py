@@ -372,6 +372,28 @@ def check_collinear_moments(columns, mean, cov):
         raise CollinearityError(f"predictors are perfectly collinear: {', '.join(names)}")
 
 
+def check_response_not_used(response, names, where):
+    """Refuse the response among predictor names (its own values would explain it).
+
+    Parameters
+    ----------
+    response : str
+        The response column.
+    names : iterable of str
+        Column or predictor names an option or the formula uses.
+    where : str
+        Where they are used, for the message (``"in scale_by="``).
+
+    Raises
+    ------
+    OrdinalDataError
+        Naming the response column.
+    """
+    if response in set(names):
+        raise OrdinalDataError(f"the response {response!r} is also used as a predictor ({where}); a model of "
+                               f"{response!r} cannot explain it by itself: remove it there")
+
+
 def prepare(formula, data, *, weights=None, levels=None):
     """Validate and encode the data of one fit.
 
@@ -391,6 +413,7 @@ def prepare(formula, data, *, weights=None, levels=None):
     data = string_columns(data)
     if response not in data.columns:
         raise OrdinalDataError(f"response column {response!r} is not in the data")
+    check_response_not_used(response, columns, "in the formula")
     check_unique(data, [response, *columns] + ([weights] if isinstance(weights, str) else []))
     check_mixed_types(data, columns)
     check_design_size(rhs, data)

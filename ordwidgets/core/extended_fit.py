@@ -20,7 +20,7 @@ import warnings
 
 import numpy as np
 
-from .design import check_collinear_moments, prepare, split_formula, threshold_labels
+from .design import check_collinear_moments, check_response_not_used, prepare, split_formula, threshold_labels
 from .engine import PreparedFit, check_enough_rows, maximise, separated_columns, user_scale_matrix
 from .exceptions import CrossingError, CrossingWarning, OrdinalDataError
 from .layout import ModelLayout
@@ -275,6 +275,9 @@ def crossing_in_box(layout, params, lo, hi):
 def extended_problem(formula, data, *, weights=None, levels=None, nonparallel=None, scale_by=None):
     """Prepare a fit with per-threshold and/or scale effects (see :func:`ordwidgets.core.fit`)."""
     nonparallel, scale_by = as_names(nonparallel, "nonparallel"), as_names(scale_by, "scale_by")
+    response = split_formula(formula)[0]
+    check_response_not_used(response, nonparallel, "in nonparallel=")
+    check_response_not_used(response, scale_by, "in scale_by=")
     prep, scale_only = _prepare_with_scale(formula, data, weights, levels, scale_by)
     order, bounds = sort_by_category(prep.y, len(prep.levels))
     cols = sorted_standardised(prep.X, order, bounds, None if prep.weights is None else prep.weights[order])

@@ -24,7 +24,7 @@ import pandas as pd
 
 from scipy import linalg
 
-from .design import prepare, threshold_labels
+from .design import check_response_not_used, prepare, split_formula, threshold_labels
 from .engine import (check_enough_rows, closed_form_thresholds, covariance_on_user_scale, maximise, standardise,
                      user_scale_matrix)
 from .exceptions import DataWarning, OrdinalDataError
@@ -312,6 +312,7 @@ def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, 
     from .mixed_results import build_result
 
     lk = get_link(link)
+    check_response_not_used(split_formula(formula)[0], groups, "in random_intercepts=")
     data = _drop_missing_groups(data, groups)
     prep = prepare(formula, data, weights=weights, levels=levels)
     coded = [pd.factorize(prep.frame.loc[prep.index, col], sort=True) for col in groups]
