@@ -100,3 +100,22 @@ def test_response_as_a_predictor_is_refused(options, where):
     formula = options.pop("formula")
     with pytest.raises(ow.OrdinalDataError, match=rf"the response 'grade' is also used as a predictor \({where}\)"):
         ow.fit(formula, df, **options)
+
+
+# --- 3. a random intercept needs groups -------------------------------------------------------
+
+def test_random_intercept_of_one_group_is_refused():
+    df = frame().assign(block=7)
+    with pytest.raises(ow.OrdinalDataError, match="grouping column 'block' has 1 group"):
+        ow.fit("grade ~ x0 + x1", df, random_intercepts=["block"])
+    # groups whose rows all weigh zero do not count: one group is left
+    df["block"] = np.where(np.arange(len(df)) < 40, 1, 2)
+    df["w"] = np.where(df["block"] == 1, 0.0, 1.0)
+    with pytest.raises(ow.OrdinalDataError, match="grouping column 'block' has 1 group"):
+        ow.fit("grade ~ x0 + x1", df, weights="w", random_intercepts=["block"])
+
+
+def test_random_intercept_of_few_groups_warns():
+    df = frame()
+    with pytest.warns(DataWarning, match="grouping column 'site' has only 4 groups"):
+        ow.fit("grade ~ x0 + x1", df, random_intercepts=["site"])

@@ -282,6 +282,46 @@ def _drop_missing_groups(data, cols):
     return data
 
 
+#: Fewest groups that identify the SD of a random intercept: one group's intercept is
+#: indistinguishable from the thresholds.
+MIN_GROUPS = 2
+#: Below this many groups the SD is estimated from very few values and a warning says so
+#: (five or six levels at least, as recalled from memory of Bolker et al. 2009, Trends Ecol.
+#: Evol. 24:127-135).
+FEW_GROUPS = 5
+
+
+def check_group_counts(groups, codes, weights=None):
+    """Refuse a grouping column with fewer than :data:`MIN_GROUPS` groups among the fitted
+    rows (groups whose rows all have weight zero do not count); warn below :data:`FEW_GROUPS`.
+
+    Parameters
+    ----------
+    groups : list of str
+        Grouping columns.
+    codes : list of ndarray
+        Group code (``0..k-1``) of each fitted row, one array per column.
+    weights : ndarray, optional
+        Row weights.
+
+    Raises
+    ------
+    OrdinalDataError
+        Naming the column and its number of groups.
+    """
+    for col, code in zip(groups, codes):
+        mass = np.bincount(code, weights=weights)
+        k = int(np.count_nonzero(mass > 0))
+        if k < MIN_GROUPS:
+            raise OrdinalDataError(f"grouping column {col!r} has {k} group(s) in the rows fitted; the SD of a "
+                                   f"random intercept needs at least {MIN_GROUPS} groups (with one group it "
+                                   "cannot be told apart from the thresholds): drop it from random_intercepts=")
+        if k < FEW_GROUPS:
+            warnings.warn(f"grouping column {col!r} has only {k} groups: the SD of its random intercept is "
+                          f"estimated from {k} values and is very uncertain; consider it as a fixed factor "
+                          f"(C({col})) instead", DataWarning, stacklevel=4)
+
+
 def _user_matrix(columns, thresholds, mean, sd, n_sds):
     """``A`` with ``params_user = A @ params_internal``: the plain map, SDs not rescaled."""
     return linalg.block_diag(user_scale_matrix(parallel_layout(columns, thresholds), mean, sd), np.eye(n_sds))
@@ -319,7 +359,8 @@ def fit_random_intercepts(formula, data, *, groups, link="logit", weights=None, 
     m, p, C = len(prep.levels) - 1, prep.X.shape[1], len(groups)
     check_enough_rows(len(prep.y) if prep.weights is None else int(np.count_nonzero(prep.weights)), m + p + C)
     mean, sd = standardise(prep.X, prep.weights)
-    design = _design_for(groups, coded, (prep.X - mean) / sd, prep, quadrature, lk)
+    design = _design_for(groups, coded, (prep.X - mean) / sd, prep, quadrature, lk)  # refuses bad quadrature first
+    check_group_counts(groups, [codes for codes, _ in coded], prep.weights)
     names = threshold_labels(prep.levels) + list(prep.columns) + [f"sd({g})" for g in groups]
     A = _user_matrix(prep.columns, threshold_labels(prep.levels), mean, sd, C)
     fitted = _maximise_checking_points(design, lk, to_user=A, names=names, max_iter=max_iter, tol=tol,
