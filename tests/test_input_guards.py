@@ -119,3 +119,51 @@ def test_random_intercept_of_few_groups_warns():
     df = frame()
     with pytest.warns(DataWarning, match="grouping column 'site' has only 4 groups"):
         ow.fit("grade ~ x0 + x1", df, random_intercepts=["site"])
+
+
+# --- 4. integer columns do not wrap around inside formula terms ------------------------------
+
+def _reference_fit(columns, y):
+    """``reference.fit`` on float columns computed here with numpy, each divided by its
+    largest magnitude for the generic optimiser; dividing a column by c multiplies its
+    coefficient by c (the likelihood depends on x'beta only), so the coefficients are divided
+    back."""
+    X = np.column_stack(columns)
+    scale = np.abs(X).max(axis=0)
+    params, loglik = R.fit(X / scale, y, "logit")
+    m = len(params) - X.shape[1]
+    return np.r_[params[:m], params[m:] / scale], loglik
+
+
+@pytest.mark.parametrize("dtype, term, compute", [
+    (np.uint8, "I(u * 100)", lambda u: u * 100.0),     # 600 > 255
+    (np.int8, "I(u ** 3)", lambda u: u ** 3.0),        # 216 > 127
+    (np.int16, "u:k", lambda u: u * 3000.0 * u),       # 6 * 18000 > 32767
+])
+def test_integer_arithmetic_in_terms_is_done_in_floats(dtype, term, compute):
+    df = frame(seed=5)
+    u = np.arange(len(df)) % 7
+    df["u"] = u.astype(dtype)
+    df["k"] = (u * 3000).astype(dtype)
+    res = ow.fit(f"grade ~ x1 + {term}", df)
+    params, loglik = _reference_fit([df["x1"].to_numpy(), compute(u.astype(float))], df["grade"].to_numpy())
+    np.testing.assert_allclose(res.params, params, rtol=1e-5, atol=1e-12)
+    assert res.loglik == pytest.approx(loglik, rel=1e-9)
+
+
+def test_large_int64_squares_are_done_in_floats():
+    df = frame(seed=6)
+    v = (np.arange(len(df)) % 7 + 1) * 10 ** 9  # v ** 2 up to 4.9e19 > int64's 9.2e18
+    df["v"] = v.astype(np.int64)
+    res = ow.fit("grade ~ I(v ** 2) + x1", df)
+    params, loglik = _reference_fit([v.astype(float) ** 2, df["x1"].to_numpy()], df["grade"].to_numpy())
+    np.testing.assert_allclose(res.params, params, rtol=1e-5, atol=1e-26)
+    assert res.loglik == pytest.approx(loglik, rel=1e-9)
+
+
+def test_integer_factor_keeps_its_level_labels():
+    df = frame(seed=7)
+    res = ow.fit("grade ~ C(site) + I(x0 * 2)", df)
+    assert [n for n in res.coef_names if n.startswith("C(site)")] == ["C(site)[T.2]", "C(site)[T.3]", "C(site)[T.4]"]
+    with pytest.warns(DataWarning, match="integer column 'site' is both a factor"):
+        ow.fit("grade ~ C(site) + I(site * x0)", df.assign(site=df["site"].astype(np.int8)))

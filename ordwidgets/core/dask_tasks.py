@@ -23,8 +23,9 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .design import check_mixed_types, weights_array, unusable_rows
+from .design import check_mixed_types, float_arithmetic, weights_array, unusable_rows
 from .exceptions import OrdinalDataError
+from .naming import factors_of
 from .objective import category_ranges, sort_by_category
 from .sorted_design import SortedDesign, layout_sorted_design
 
@@ -146,7 +147,8 @@ def design_arrays(part, plan):
     y = response_codes(rows[plan.response], plan)
     if not plan.names:
         return np.empty((len(rows), 0)), y, w, rows
-    mm = plan.spec.get_model_matrix(formula_input(rows, plan.categorical), na_action="ignore")
+    evaluated = float_arithmetic(factors_of(plan.spec.formula), formula_input(rows, plan.categorical))
+    mm = plan.spec.get_model_matrix(evaluated, na_action="ignore")
     return np.asfortranarray(mm[list(plan.names)].to_numpy(float)), y, w, rows
 
 

@@ -282,7 +282,7 @@ def design_matrix(rhs, data):
         spec = _BARE_SPECS[key]
         if spec is not None:
             return _column_major(data, bare, len(data)), tuple(bare), spec
-    mm = _model_matrix(rhs, data)
+    mm = _model_matrix(rhs, float_arithmetic(parsed_terms(rhs), data))
     cols = [c for c in mm.columns if c != "Intercept"]
     nonnum = [c for c in cols if not pd.api.types.is_numeric_dtype(mm[c].dtype)]
     if nonnum:
@@ -310,6 +310,52 @@ def _model_matrix(rhs, data):
         return model_matrix(rhs, data, na_action="ignore")
     except Exception as exc:
         raise OrdinalDataError(f"cannot build the design for {rhs!r}: {exc}") from exc
+
+
+def float_arithmetic(terms, data):
+    """``data`` with the integer columns that formula arithmetic reads as float64.
+
+    Integer arithmetic wraps around silently (``I(u * 100)`` on a uint8 column, ``I(v ** 2)``
+    on int64 values near 1e10, the product of an interaction); in doubles it does not.
+    Columns read by a ``C(...)`` factor keep their type, so their level labels stay as they
+    are (``C(site)[T.3]``); one that arithmetic reads too is left as it is, with a warning.
+
+    Parameters
+    ----------
+    terms : tuple
+        The formula's terms, as :func:`~ordwidgets.core.naming.parsed_terms` gives them.
+    data : pandas.DataFrame
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``data`` itself when nothing needs a cast, else a copy with those columns cast.
+    """
+    factor, arithmetic = _column_uses(terms)
+    integer = {c for c in arithmetic if c in data.columns and _plain_integer(data[c])}
+    for c in sorted(integer & factor):
+        warnings.warn(f"integer column {c!r} is both a factor (C(...)) and used in arithmetic, which is "
+                      "done in its integer type and can wrap around; convert it with .astype(float) for the "
+                      "arithmetic or give the factor its own column", DataWarning, stacklevel=5)
+    cast = sorted(integer - factor)
+    return data.astype({c: np.float64 for c in cast}) if cast else data
+
+
+def _column_uses(terms):
+    """Columns read by ``C(...)`` factors, and columns that expressions or interactions compute with."""
+    factor, arithmetic = set(), set()
+    for term in terms:
+        for f in term:
+            if f.method == "python" and f.expr.startswith("C("):
+                factor |= f.variables
+            elif f.method == "python" or len(term) > 1:
+                arithmetic |= f.variables
+    return factor, arithmetic
+
+
+def _plain_integer(col):
+    dtype = col.dtype
+    return pd.api.types.is_integer_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)
 
 
 def _numeric_column_terms(rhs, data):
