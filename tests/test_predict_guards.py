@@ -153,3 +153,16 @@ def test_most_likely_of_a_random_intercept_fit_is_missing_where_a_predictor_is_m
     res = ow.fit("y ~ x1", df, random_intercepts=["grp"])
     got = res.predict(pd.DataFrame({"x1": [np.nan, 0.0]}), kind="most_likely")
     assert pd.isna(got.iloc[0]) and got.iloc[1] in res.levels
+
+
+def test_prediction_does_formula_arithmetic_of_integer_columns_in_doubles():
+    # I(u * 100) on a uint8 column wraps around in integer arithmetic (200 * 100 = 20000
+    # > 255); the reference evaluates the term in doubles with numpy.
+    rng = np.random.default_rng(4)
+    n = 400
+    u = rng.integers(0, 250, n).astype(np.uint8)
+    latent = 3e-4 * (u.astype(float) * 100) + rng.logistic(size=n)
+    df = pd.DataFrame({"u": u, "y": np.searchsorted([2.0, 4.0, 6.0], latent) + 1})
+    res = ow.fit("y ~ I(u * 100)", df)
+    eta = res.params[res.names.index("I(u * 100)")] * (u.astype(float) * 100)
+    np.testing.assert_allclose(res.predict(df).to_numpy(), _reference_probabilities(res, eta), atol=1e-12)

@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from .exceptions import ArgumentError, DataWarning, OrdinalDataError, UnseenLevelError
+from .design import float_arithmetic
 from .naming import check_unique, factors_of, string_columns
 
 __all__ = ["new_design", "prediction_frame"]
@@ -43,7 +44,8 @@ def new_design(res, data, columns):
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         try:
-            mm = res.model_spec.get_model_matrix(data, na_action="ignore")
+            mm = res.model_spec.get_model_matrix(float_arithmetic(factors_of(res.model_spec.formula), data),
+                                                 na_action="ignore")
         except Exception as exc:  # formulaic raises several evaluation error types
             raise OrdinalDataError(f"cannot build the design of the new data: {exc}") from exc
     for w in caught:
