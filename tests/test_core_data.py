@@ -77,6 +77,16 @@ def test_collinear_predictors_are_named(df):
         ow.fit("grade ~ wait + flat", df.assign(flat=3.0))
 
 
+def test_a_column_far_from_zero_is_refused_with_the_remedy(df):
+    far = df.wait + 1e12
+    assert far.std() / far.mean() < 1e-12 < far.std()  # numpy: varies, but below 1e-12 of its size
+    with pytest.raises(ow.CollinearityError, match="far varies.*centre it"):
+        ow.fit("grade ~ wait + far", df.assign(far=far))
+    with pytest.raises(ow.CollinearityError) as flat:
+        ow.fit("grade ~ wait + flat", df.assign(flat=3.0))
+    assert "centre" not in str(flat.value)  # a true constant gets no remedy about centring
+
+
 def test_fewer_rows_than_parameters():
     tiny = pd.DataFrame({"grade": [0, 1, 2, 1], "a": [1.0, 2, 3, 5], "b": [2.0, 1, 0, 4], "c": [0.5, 0, 1, 7]})
     with pytest.raises(ow.OrdinalDataError, match="fewer rows than parameters"):

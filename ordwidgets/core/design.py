@@ -407,8 +407,11 @@ def check_collinear_moments(columns, mean, cov):
     sd = np.sqrt(np.maximum(np.diag(cov), 0.0))
     const = [c for c, s, m in zip(columns, sd, mean) if s <= 1e-12 * max(1.0, abs(m))]
     if const:
+        far = [c for c, s, m in zip(columns, sd, mean) if c in const and s > 0 and abs(m) > 1.0]
         raise CollinearityError(
             f"predictors constant in the rows used (collinear with the thresholds): {', '.join(const)}"
+            + (f"; {', '.join(far)} varies, but by less than 1e-12 of its size, which double precision cannot "
+               "tell from a constant: subtract a typical value (centre it) first" if far else "")
         )
     vals, vecs = np.linalg.eigh(cov / np.outer(sd, sd))
     small = vals < 1e-10 * max(vals.max(), 1.0)
